@@ -1,0 +1,62 @@
+"""Errors a user of windvane can cause, in one tree.
+
+    WindvaneError
+    ├── DefinitionError      a feature definition file is wrong (``windvane check`` lists them)
+    ├── InputError           a value from outside names a bad field
+    │   ├── BadEvent         an event line or stream entry that cannot be applied
+    │   └── BadRequest       a lookup request that cannot be answered
+    ├── StoreError           the state store is misconfigured or out of reach
+    │   └── StoreUnavailable the store did not answer
+    └── UsageError           a command was called with arguments that do not fit
+
+Every message says what is wrong and, where it helps, how to fix it. The CLI prints
+the message without a traceback and exits with status 2 for definition and usage
+mistakes; the HTTP layer maps ``InputError`` to a 422 naming the field.
+"""
+
+from __future__ import annotations
+
+
+class WindvaneError(Exception):
+    """Root of every error that windvane reports to a user instead of crashing."""
+
+
+class DefinitionError(WindvaneError):
+    """One or more mistakes in the feature definition files.
+
+    ``problems`` holds one line per mistake, each naming the file, the feature and
+    the field, so that all of them can be fixed in one pass.
+    """
+
+    def __init__(self, problems: list[str]) -> None:
+        self.problems = list(problems)
+        super().__init__("\n".join(self.problems))
+
+
+class InputError(WindvaneError):
+    """A value that came from outside is wrong; ``field`` is its dotted path."""
+
+    def __init__(self, field: str, reason: str) -> None:
+        self.field = field
+        self.reason = reason
+        super().__init__(f"{field}: {reason}" if field else reason)
+
+
+class BadEvent(InputError):
+    """An event that is rejected whole: nothing of it is applied."""
+
+
+class BadRequest(InputError):
+    """A lookup request that names a missing or malformed field."""
+
+
+class StoreError(WindvaneError):
+    """The state store cannot be used as configured."""
+
+
+class StoreUnavailable(StoreError):
+    """The state store did not answer (down, unreachable or too slow)."""
+
+
+class UsageError(WindvaneError):
+    """A command or function was called with arguments that do not fit together."""
