@@ -1,0 +1,5 @@
+import sys
+
+from windvane.cli import main
+
+sys.exit(main())

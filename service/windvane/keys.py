@@ -1,0 +1,59 @@
+"""Every Redis key name windvane writes, built in one place.
+
+Layout (``<gen>`` is the state generation, so a rebuild can sit beside live state):
+
+    wv:<gen>:{u:<user>}                     hash: the user's state
+    wv:<gen>:{u:<user>}:c:<campaign>        hash: the user's state for one campaign
+    wv:<gen>:{a:<app>}                      hash: the app's state
+    wv:<gen>:{a:<app>}:<field>:<bucket>     HyperLogLog: one time bucket of a distinct count
+
+The part in braces is the Redis Cluster hash tag: all keys of one user (or one app)
+hash to the same slot, so a lookup reads them in one round trip even on a cluster.
+"""
+
+from __future__ import annotations
+
+import re
+
+KEY_PREFIX = "wv"
+DEFAULT_GENERATION = "main"
+
+# One letter per key field keeps keys short; the first field of a key is its hash tag.
+KEY_FIELD_LETTERS = {"user": "u", "app": "a", "campaign": "c"}
+
+_GENERATION = re.compile(r"^[a-z0-9][a-z0-9_-]{0,31}$")
+
+
+def check_generation(name: str) -> str:
+    if not _GENERATION.match(name):
+        raise ValueError(
+            f"{name!r} is not a generation name: use 1-32 lowercase letters, digits, - or _"
+        )
+    return name
+
+
+class KeyLayout:
+    """Builds key names for one generation of state."""
+
+    __slots__ = ("generation", "prefix")
+
+    def __init__(self, generation: str = DEFAULT_GENERATION) -> None:
+        self.generation = check_generation(generation)
+        self.prefix = f"{KEY_PREFIX}:{generation}:"
+
+    def state_key(self, fields: tuple[str, ...], values: tuple[str, ...]) -> str:
+        """The hash holding one key's state, such as the state of user X for campaign Y."""
+        letter = KEY_FIELD_LETTERS
+        parts = [f"{self.prefix}{{{letter[fields[0]]}:{values[0]}}}"]
+        for name, value in zip(fields[1:], values[1:], strict=True):
+            parts.append(f"{letter[name]}:{value}")
+        return ":".join(parts)
+
+    @staticmethod
+    def bucket_key(state_key: str, field_id: str, bucket: int) -> str:
+        """A per-bucket side key (a HyperLogLog) that shares the state key's hash tag."""
+        return f"{state_key}:{field_id}:{bucket}"
+
+    def pattern(self) -> str:
+        """A SCAN pattern matching every key of this generation."""
+        return f"{self.prefix}*"

@@ -1,0 +1,181 @@
+"""What a feature kind provides: its options, its stored state and how a value is read.
+
+A kind is one module: an options model (what a definition may say), a ``State`` (the
+stored layout, the update applied per event, and its Lua handler, the one place the
+update arithmetic lives) and a ``Feature`` (the read, the one place the read arithmetic
+lives). Request-time kinds have no state and read only the lookup request.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from abc import ABC, abstractmethod
+from dataclasses import dataclass
+from typing import Annotated, Any, ClassVar, Literal
+
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
+
+from windvane.batch_writes import BatchWrites
+from windvane.durations import format_duration, parse_duration_s
+from windvane.events import EVENT_KINDS, Event
+from windvane.lookup_request import LookupRequest
+
+DurationS = Annotated[int, BeforeValidator(parse_duration_s)]
+EventKind = Literal["request", "bid", "win", "impression", "click"]
+KeyName = Annotated[str, Field(pattern=r"^[a-z+]+$")]
+
+
+@dataclass(frozen=True)
+class LuaHandler:
+    """One update operation in Lua: ``arity`` arguments, the first always the hash field.
+
+    The body runs with ``a`` (ARGV), ``i`` (index of the field argument), ``S`` (the
+    key's current field values, false when absent) and ``put(field, value)``.
+    """
+
+    arity: int
+    body: str
+
+
+class FieldProblem(ValueError):
+    """A definition value that is well-formed but does not make sense; names its field."""
+
+    def __init__(self, field: str, reason: str) -> None:
+        self.field = field
+        self.reason = reason
+        super().__init__(reason)
+
+
+class Options(BaseModel):
+    """Fields every definition has; each kind extends it with its own."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    name: Annotated[str, Field(pattern=r"^[a-z][a-z0-9_]{0,62}$")]
+    kind: str
+    description: str = ""
+
+
+class KeyedOptions(Options):
+    """Options of a kind that keeps state under a key such as ``user`` or ``user+campaign``."""
+
+    key: KeyName
+
+
+class BuildContext:
+    """What the compiler lends a kind while it builds: where the file is, the retention margin."""
+
+    def __init__(self, source_dir: str, expire_margin_s: int) -> None:
+        self.source_dir = source_dir
+        self.expire_margin_s = expire_margin_s
+
+
+class State(ABC):
+    """The stored state of one or more features at one key: layout, update and Lua handler.
+
+    Two features whose states have equal ``signature`` share one stored field (for
+    example session depth and session length). The field id is derived from the
+    signature, so changing a definition's parameters never misreads old state.
+    """
+
+    #: Opcode -> its Lua handler, run by the update script (see ``windvane.update_script``).
+    LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {}
+
+    events: frozenset[str]
+    retention_s: int
+    #: True when the state holds who a person is (a user id), so restricted events must skip it.
+    identifies_user: bool = False
+
+    @property
+    @abstractmethod
+    def signature(self) -> str: ...
+
+    @abstractmethod
+    def update(self, event: Event, key: str, field: str, writes: BatchWrites) -> None:
+        """Add this event's effect on the state stored at ``key`` / ``field`` to ``writes``."""
+
+    @abstractmethod
+    def max_bytes(self, field: str) -> int:
+        """Rough upper bound of the stored bytes of this state under one key."""
+
+    def read_command(self, key: str, field: str, t_ms: int) -> tuple[Any, ...] | None:
+        """An extra store command whose answer is this state's raw value, or None.
+
+        None (the default) means the state is a field of the key's hash, read with the
+        hash in the lookup's one round trip.
+        """
+        return None
+
+    def side_keys_note(self) -> str:
+        return ""
+
+    def describe(self) -> str:
+        return self.signature
+
+    @staticmethod
+    def field_id(scope: str, signature: str, length: int = 3) -> str:
+        digest = hashlib.blake2b(f"{scope}|{signature}".encode(), digest_size=8).digest()
+        number = int.from_bytes(digest, "big")
+        alphabet = "0123456789abcdefghijklmnopqrstuvwxyz"
+        chars = []
+        for _ in range(length):
+            number, rest = divmod(number, 36)
+            chars.append(alphabet[rest])
+        return "".join(chars)
+
+
+class Feature(ABC):
+    """One named value of the lookup answer."""
+
+    kind: ClassVar[str]
+    options: Options
+    state: State | None = None
+    #: The key fields of a stateful feature, such as ("user", "campaign").
+    key_fields: tuple[str, ...] = ()
+
+    def __init__(self, options: Options) -> None:
+        self.options = options
+
+    @property
+    def name(self) -> str:
+        return self.options.name
+
+    def read(self, raw: Any, t_ms: int) -> float | int | None:
+        """The value from the state's raw stored value (None when nothing is stored)."""
+        raise NotImplementedError
+
+    def read_request(self, request: LookupRequest) -> float | int | None:
+        """The value of a request-time feature, from the lookup request alone."""
+        raise NotImplementedError
+
+    def describe(self) -> str:
+        return self.kind
+
+
+class FeatureKind(ABC):
+    """A kind registers under its name and turns validated options into a feature."""
+
+    name: ClassVar[str]
+    options_model: ClassVar[type[Options]]
+    states: ClassVar[tuple[type[State], ...]] = ()
+
+    @classmethod
+    @abstractmethod
+    def build(cls, options: Any, context: BuildContext) -> Feature: ...
+
+
+def check_window(window_s: int, granularity_s: int) -> int:
+    """The number of buckets of a window, or a FieldProblem when it does not divide evenly."""
+    if window_s % granularity_s:
+        raise FieldProblem(
+            "window",
+            f"{format_duration(window_s)} is not a multiple of granularity "
+            f"{format_duration(granularity_s)}",
+        )
+    return window_s // granularity_s
+
+
+def check_events(events: tuple[str, ...]) -> frozenset[str]:
+    if not events:
+        raise FieldProblem("events", f"name at least one event kind of {', '.join(EVENT_KINDS)}")
+    return frozenset(events)

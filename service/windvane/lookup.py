@@ -1,0 +1,96 @@
+"""The read path: one lookup request in, one feature object out, one store round trip between.
+
+``prepare`` lists the commands (one HGETALL per key the request can read, plus one
+PFCOUNT per distinct count); the caller runs them in one pipeline, synchronously or
+not; ``answer`` turns the replies and the request into features. The CLI, the HTTP
+service and the tests share these two functions, so a value is computed one way only.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from windvane.keys import KeyLayout
+from windvane.lookup_request import LookupRequest
+from windvane.plan import Plan, Scope
+
+
+class PreparedLookup:
+    __slots__ = ("commands", "reads", "request", "t_ms")
+
+    def __init__(self, request: LookupRequest) -> None:
+        self.request = request
+        self.t_ms = round(request.ts_s * 1000)
+        self.commands: list[tuple[Any, ...]] = []
+        # (scope, campaign or None, index of the HGETALL or -1, {field: index of its command})
+        self.reads: list[tuple[Scope, str | None, int, dict[str, int]]] = []
+
+
+class LookupReader:
+    def __init__(self, plan: Plan, layout: KeyLayout) -> None:
+        self.plan = plan
+        self.layout = layout
+        self._request_features = plan.request_features
+        self._hash_scopes = {
+            id(scope): any(s.state.read_command("", s.field, 0) is None for s in scope.states)
+            for scope in plan.scopes
+        }
+
+    def prepare(self, request: LookupRequest) -> PreparedLookup:
+        lookup = PreparedLookup(request)
+        no_user = request.user is None or request.restricted
+        for scope in self.plan.scopes:
+            if (scope.per_user and no_user) or ("app" in scope.fields and request.app is None):
+                continue
+            for campaign in request.campaigns if scope.per_campaign else (None,):
+                values = tuple(
+                    request.user if name == "user" else request.app if name == "app" else campaign
+                    for name in scope.fields
+                )
+                key = self.layout.state_key(scope.fields, values)  # type: ignore[arg-type]
+                index = -1
+                if self._hash_scopes[id(scope)]:
+                    index = len(lookup.commands)
+                    lookup.commands.append(("HGETALL", key))
+                side: dict[str, int] = {}
+                for stored in scope.states:
+                    command = stored.state.read_command(key, stored.field, lookup.t_ms)
+                    if command is not None:
+                        side[stored.field] = len(lookup.commands)
+                        lookup.commands.append(command)
+                lookup.reads.append((scope, campaign, index, side))
+        return lookup
+
+    def answer(self, lookup: PreparedLookup, replies: list[Any] | None) -> dict[str, Any]:
+        """The feature object; ``replies`` None means the store did not answer in time."""
+        request, t_ms = lookup.request, lookup.t_ms
+        shared: dict[str, Any] = {}
+        per_campaign: dict[str, dict[str, Any]] = {c: {} for c in request.campaigns}
+        for feature in self.plan.features:
+            if feature.state is None:
+                shared[feature.name] = feature.read_request(request)
+            elif "campaign" in feature.key_fields:
+                for values in per_campaign.values():
+                    values[feature.name] = None
+            else:
+                shared[feature.name] = None
+        if replies is not None:
+            for scope, campaign, index, side in lookup.reads:
+                stored_hash = replies[index] if index >= 0 else {}
+                target = shared if campaign is None else per_campaign[campaign]
+                for stored in scope.states:
+                    if stored.field in side:
+                        raw = replies[side[stored.field]]
+                    else:
+                        raw = stored_hash.get(stored.field.encode())
+                    for feature in stored.features:
+                        target[feature.name] = feature.read(raw, t_ms)
+        return {
+            "ts": request.ts_s,
+            "user": request.user,
+            "app": request.app,
+            "restricted": request.restricted,
+            "stored": "missing" if replies is None else "ok",
+            "features": shared,
+            "campaigns": per_campaign,
+        }

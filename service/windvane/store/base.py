@@ -1,0 +1,52 @@
+"""The state store interface: one pipelined round trip to write a batch, one to read a lookup.
+
+Backends differ only in how they reach a Redis-compatible server; the key layout,
+the update script and the read commands are the same for all of them.
+"""
+
+from __future__ import annotations
+
+from abc import ABC, abstractmethod
+from collections.abc import Iterator, Sequence
+from typing import Any
+
+from windvane.batch_writes import BatchWrites
+
+
+class StateStore(ABC):
+    url: str
+
+    @abstractmethod
+    def apply(self, writes: BatchWrites) -> None:
+        """Send every write of a batch in one pipelined round trip."""
+
+    @abstractmethod
+    def read(self, commands: Sequence[tuple[Any, ...]]) -> list[Any]:
+        """Run read commands in one pipelined round trip; answers in order."""
+
+    @abstractmethod
+    def scan_keys(self, pattern: str) -> Iterator[str]:
+        """Every key matching ``pattern``, incrementally (SCAN, never KEYS)."""
+
+    @abstractmethod
+    def dump_hash(self, key: str) -> dict[bytes, bytes]: ...
+
+    @abstractmethod
+    def key_type(self, key: str) -> str: ...
+
+    @abstractmethod
+    def expire_at_ms(self, key: str) -> int:
+        """The key's expiry in epoch milliseconds, -1 without expiry, -2 when absent."""
+
+    @abstractmethod
+    def flush(self) -> None:
+        """Delete every key in the store's database (tests and demos only)."""
+
+    @abstractmethod
+    def close(self) -> None: ...
+
+    def __enter__(self) -> StateStore:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
