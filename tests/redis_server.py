@@ -1,0 +1,78 @@
+"""A redis-server that a test starts, owns and stops: never one it did not start.
+
+It listens on a free loopback port with its own data directory, so tests neither
+touch nor depend on any other Redis on the machine.
+"""
+
+from __future__ import annotations
+
+import shutil
+import socket
+import subprocess
+import tempfile
+import time
+from pathlib import Path
+
+import redis
+
+
+def free_port() -> int:
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        return sock.getsockname()[1]
+
+
+class RedisServer:
+    def __init__(self, *, appendonly: bool = False, port: int | None = None) -> None:
+        binary = shutil.which("redis-server")
+        if binary is None:
+            raise RuntimeError("redis-server is not on PATH; install Redis to run the tests")
+        self.binary = binary
+        self.port = port or free_port()
+        self.directory = Path(tempfile.mkdtemp(prefix="windvane-redis-"))
+        self.appendonly = appendonly
+        self.process: subprocess.Popen[bytes] | None = None
+
+    @property
+    def url(self) -> str:
+        return f"redis://127.0.0.1:{self.port}/0"
+
+    def start(self) -> RedisServer:
+        args = [
+            self.binary, "--port", str(self.port), "--bind", "127.0.0.1",
+            "--dir", str(self.directory), "--save", "", "--daemonize", "no",
+            "--logfile", str(self.directory / "redis.log"),
+        ]  # fmt: skip
+        if self.appendonly:
+            args += ["--appendonly", "yes", "--appendfsync", "always"]
+        else:
+            args += ["--appendonly", "no"]
+        self.process = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        client = redis.Redis(port=self.port, socket_connect_timeout=0.2)
+        deadline = time.monotonic() + 10
+        while True:
+            try:
+                client.ping()
+                break
+            except redis.exceptions.ConnectionError:
+                if self.process.poll() is not None or time.monotonic() > deadline:
+                    log = (self.directory / "redis.log").read_text(errors="replace")
+                    raise RuntimeError(f"redis-server did not start:\n{log}") from None
+                time.sleep(0.02)
+            finally:
+                client.close()
+        return self
+
+    def stop(self) -> None:
+        if self.process is not None and self.process.poll() is None:
+            self.process.terminate()
+            try:
+                self.process.wait(timeout=10)
+            except subprocess.TimeoutExpired:
+                self.process.kill()
+                self.process.wait()
+        self.process = None
+
+    def cleanup(self) -> None:
+        self.stop()
+        shutil.rmtree(self.directory, ignore_errors=True)
