@@ -32,8 +32,7 @@ class LookupReader:
         self.layout = layout
         self._request_features = plan.request_features
         self._hash_scopes = {
-            id(scope): any(s.state.read_command("", s.field, 0) is None for s in scope.states)
-            for scope in plan.scopes
+            id(scope): any(s.state.in_hash for s in scope.states) for scope in plan.scopes
         }
 
     def prepare(self, request: LookupRequest) -> PreparedLookup:

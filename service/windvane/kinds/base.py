@@ -85,6 +85,8 @@ class State(ABC):
     retention_s: int
     #: True when the state holds who a person is (a user id), so restricted events must skip it.
     identifies_user: bool = False
+    #: False for a state kept in side keys of its own rather than as a field of the key's hash.
+    in_hash: ClassVar[bool] = True
 
     @property
     @abstractmethod

@@ -43,6 +43,8 @@ class DistinctCountOptions(KeyedOptions):
 
 
 class DistinctBuckets(State):
+    in_hash = False
+
     def __init__(
         self, events: frozenset[str], of: str, granularity_s: int, span: int, margin_s: int
     ) -> None:
