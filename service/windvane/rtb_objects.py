@@ -76,7 +76,7 @@ def number(
     if raw is None:
         return None
     if isinstance(raw, bool) or not isinstance(raw, int | float):
-        raise error(field, f"must be a number, not {_json_type(raw)}")
+        raise error(field, f"must be a number, not {json_type(raw)}")
     value = float(raw)
     if not math.isfinite(value):
         raise error(field, "must be a finite number")
@@ -110,16 +110,16 @@ def text(raw: object, field: str, error: ErrorType) -> str | None:
     return raw
 
 
-def _object(raw: object, field: str, error: ErrorType) -> dict | None:
+def json_object(raw: object, field: str, error: ErrorType) -> dict | None:
     if raw is None:
         return None
     if not isinstance(raw, dict):
-        raise error(field, f"must be an object, not {_json_type(raw)}")
+        raise error(field, f"must be an object, not {json_type(raw)}")
     return raw
 
 
 def parse_device(raw: object, error: ErrorType, prefix: str = "device") -> Device | None:
-    obj = _object(raw, prefix, error)
+    obj = json_object(raw, prefix, error)
     if obj is None:
         return None
     return Device(
@@ -134,7 +134,7 @@ def parse_device(raw: object, error: ErrorType, prefix: str = "device") -> Devic
 
 
 def parse_geo(raw: object, error: ErrorType, prefix: str = "geo") -> Geo | None:
-    obj = _object(raw, prefix, error)
+    obj = json_object(raw, prefix, error)
     if obj is None:
         return None
     country = obj.get("country")
@@ -154,7 +154,7 @@ def parse_geo(raw: object, error: ErrorType, prefix: str = "geo") -> Geo | None:
 
 
 def parse_slot(raw: object, error: ErrorType, prefix: str = "slot") -> Slot | None:
-    obj = _object(raw, prefix, error)
+    obj = json_object(raw, prefix, error)
     if obj is None:
         return None
     w = number(obj.get("w"), f"{prefix}.w", error, positive=True)
@@ -164,7 +164,7 @@ def parse_slot(raw: object, error: ErrorType, prefix: str = "slot") -> Slot | No
     return Slot(w, h)
 
 
-def _json_type(raw: object) -> str:
+def json_type(raw: object) -> str:
     if isinstance(raw, str):
         return "a string"
     if isinstance(raw, list):
