@@ -15,8 +15,9 @@ from typing import Any
 import redis
 
 from windvane.batch_writes import BatchWrites
-from windvane.errors import StoreError, StoreUnavailable
+from windvane.errors import StoreError
 from windvane.store.base import StateStore
+from windvane.store.reachability import store_errors
 from windvane.update_script import UPDATE_SCRIPT, UPDATE_SCRIPT_SHA
 
 
@@ -33,7 +34,7 @@ class RedisStateStore(StateStore):
         self._script_loaded = False
 
     def _load_script(self) -> None:
-        with _translated(self.url):
+        with store_errors(self.url):
             sha = self.client.script_load(UPDATE_SCRIPT)
         if sha != UPDATE_SCRIPT_SHA:
             raise StoreError(f"{self.url}: the server hashed the update script differently")
@@ -66,60 +67,37 @@ class RedisStateStore(StateStore):
             pipe.pfadd(key, *members)
             pipe.pexpireat(key, expire_at_ms, nx=True)
             pipe.pexpireat(key, expire_at_ms, gt=True)
-        with _translated(self.url):
+        with store_errors(self.url):
             pipe.execute()
 
     def read(self, commands: Sequence[tuple[Any, ...]]) -> list[Any]:
         pipe = self.client.pipeline(transaction=False)
         for command in commands:
             pipe.execute_command(*command)
-        with _translated(self.url):
+        with store_errors(self.url):
             return pipe.execute()
 
     def scan_keys(self, pattern: str) -> Iterator[str]:
-        with _translated(self.url):
+        with store_errors(self.url):
             for key in self.client.scan_iter(match=pattern, count=1000):
                 yield key.decode() if isinstance(key, bytes) else key
 
     def dump_hash(self, key: str) -> dict[bytes, bytes]:
-        with _translated(self.url):
+        with store_errors(self.url):
             return self.client.hgetall(key)
 
     def key_type(self, key: str) -> str:
-        with _translated(self.url):
+        with store_errors(self.url):
             kind = self.client.type(key)
         return kind.decode() if isinstance(kind, bytes) else kind
 
     def expire_at_ms(self, key: str) -> int:
-        with _translated(self.url):
+        with store_errors(self.url):
             return int(self.client.pexpiretime(key))
 
     def flush(self) -> None:
-        with _translated(self.url):
+        with store_errors(self.url):
             self.client.flushdb()
 
     def close(self) -> None:
         self.client.close()
-
-
-class _translated:
-    """Turn redis-py's connection errors into ``StoreUnavailable`` naming the store."""
-
-    def __init__(self, url: str) -> None:
-        self.url = url
-
-    def __enter__(self) -> None:
-        return None
-
-    def __exit__(
-        self, kind: type[BaseException] | None, exc: BaseException | None, tb: object
-    ) -> bool:
-        if exc is None:
-            return False
-        if isinstance(exc, redis.exceptions.NoScriptError):
-            return False
-        if isinstance(exc, redis.exceptions.ConnectionError | redis.exceptions.TimeoutError):
-            raise StoreUnavailable(f"the store at {self.url} did not answer: {exc}") from None
-        if isinstance(exc, redis.exceptions.ResponseError):
-            raise StoreError(f"the store at {self.url} refused a command: {exc}") from None
-        return False
