@@ -4,14 +4,18 @@
     ├── DefinitionError      a feature definition file is wrong (``windvane check`` lists them)
     ├── InputError           a value from outside names a bad field
     │   ├── BadEvent         an event line or stream entry that cannot be applied
-    │   └── BadRequest       a lookup request that cannot be answered
+    │   ├── BadRequest       a lookup request that cannot be answered
+    │   └── BadSnapshot      a coefficient snapshot or activation that is refused whole
+    ├── UnknownModel         no model (or model version) of that name has been published
+    ├── NotAuthorized        a write without the right bearer token
     ├── StoreError           the state store is misconfigured or out of reach
     │   └── StoreUnavailable the store did not answer
     └── UsageError           a command was called with arguments that do not fit
 
 Every message says what is wrong and, where it helps, how to fix it. The CLI prints
 the message without a traceback and exits with status 2 for definition and usage
-mistakes; the HTTP layer maps ``InputError`` to a 422 naming the field.
+mistakes; the HTTP layer maps ``InputError`` to a 422 naming the field, ``UnknownModel``
+to a 404 and ``NotAuthorized`` to a 401.
 """
 
 from __future__ import annotations
@@ -48,6 +52,21 @@ class BadEvent(InputError):
 
 class BadRequest(InputError):
     """A lookup request that names a missing or malformed field."""
+
+
+class BadSnapshot(InputError):
+    """A snapshot or activation that is refused; nothing of it is stored.
+
+    ``field`` names the term (``terms[2] 'ctr_x_frac'``) or the top-level field.
+    """
+
+
+class UnknownModel(WindvaneError):
+    """No model, or no version of a model, by that name."""
+
+
+class NotAuthorized(WindvaneError):
+    """A write endpoint was called without the configured bearer token."""
 
 
 class StoreError(WindvaneError):

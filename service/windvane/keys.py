@@ -6,6 +6,8 @@ Layout (``<gen>`` is the state generation, so a rebuild can sit beside live stat
     wv:<gen>:{u:<user>}:c:<campaign>        hash: the user's state for one campaign
     wv:<gen>:{a:<app>}                      hash: the app's state
     wv:<gen>:{a:<app>}:<field>:<bucket>     HyperLogLog: one time bucket of a distinct count
+    wv:models                               set: names of published models
+    wv:model:{m:<name>}:<part>              one model's snapshots, versions, active arms, audit
 
 The part in braces is the Redis Cluster hash tag: all keys of one user (or one app)
 hash to the same slot, so a lookup reads them in one round trip even on a cluster.
@@ -20,6 +22,8 @@ DEFAULT_GENERATION = "main"
 
 # One letter per key field keeps keys short; the first field of a key is its hash tag.
 KEY_FIELD_LETTERS = {"user": "u", "app": "a", "campaign": "c"}
+
+MODELS_KEY = f"{KEY_PREFIX}:models"
 
 _GENERATION = re.compile(r"^[a-z0-9][a-z0-9_-]{0,31}$")
 
@@ -57,3 +61,8 @@ class KeyLayout:
     def pattern(self) -> str:
         """A SCAN pattern matching every key of this generation."""
         return f"{self.prefix}*"
+
+
+def model_key(model: str, part: str) -> str:
+    """A key of one model's registry; all of a model's keys share one hash slot."""
+    return f"{KEY_PREFIX}:model:{{m:{model}}}:{part}"
