@@ -15,13 +15,25 @@ from windvane.lookup_request import LookupRequest
 from windvane.plan import Plan, Scope
 
 
+class _Missing:
+    """Stands in for the reply of a command the store did not answer in time."""
+
+    def __repr__(self) -> str:
+        return "MISSING"
+
+
+MISSING: Any = _Missing()
+
+
 class PreparedLookup:
-    __slots__ = ("commands", "reads", "request", "t_ms")
+    __slots__ = ("cacheable", "commands", "reads", "request", "t_ms")
 
     def __init__(self, request: LookupRequest) -> None:
         self.request = request
         self.t_ms = round(request.ts_s * 1000)
         self.commands: list[tuple[Any, ...]] = []
+        # Per command: True when it reads no per-user state, so a short-lived cache may answer.
+        self.cacheable: list[bool] = []
         # (scope, campaign or None, index of the HGETALL or -1, {field: index of its command})
         self.reads: list[tuple[Scope, str | None, int, dict[str, int]]] = []
 
@@ -48,20 +60,27 @@ class LookupReader:
                 )
                 key = self.layout.state_key(scope.fields, values)  # type: ignore[arg-type]
                 index = -1
+                shared = not scope.per_user
                 if self._hash_scopes[id(scope)]:
                     index = len(lookup.commands)
                     lookup.commands.append(("HGETALL", key))
+                    lookup.cacheable.append(shared)
                 side: dict[str, int] = {}
                 for stored in scope.states:
                     command = stored.state.read_command(key, stored.field, lookup.t_ms)
                     if command is not None:
                         side[stored.field] = len(lookup.commands)
                         lookup.commands.append(command)
+                        lookup.cacheable.append(shared)
                 lookup.reads.append((scope, campaign, index, side))
         return lookup
 
     def answer(self, lookup: PreparedLookup, replies: list[Any] | None) -> dict[str, Any]:
-        """The feature object; ``replies`` None means the store did not answer in time."""
+        """The feature object from the replies, in command order.
+
+        ``replies`` None, or a reply that is ``MISSING``, means the store did not answer
+        in time: those stored features are null and ``stored`` says ``missing``.
+        """
         request, t_ms = lookup.request, lookup.t_ms
         shared: dict[str, Any] = {}
         per_campaign: dict[str, dict[str, Any]] = {c: {} for c in request.campaigns}
@@ -73,6 +92,7 @@ class LookupReader:
                     values[feature.name] = None
             else:
                 shared[feature.name] = None
+        missing = replies is None
         if replies is not None:
             for scope, campaign, index, side in lookup.reads:
                 stored_hash = replies[index] if index >= 0 else {}
@@ -80,8 +100,13 @@ class LookupReader:
                 for stored in scope.states:
                     if stored.field in side:
                         raw = replies[side[stored.field]]
+                    elif stored_hash is MISSING:
+                        raw = MISSING
                     else:
                         raw = stored_hash.get(stored.field.encode())
+                    if raw is MISSING:
+                        missing = True
+                        continue
                     for feature in stored.features:
                         target[feature.name] = feature.read(raw, t_ms)
         return {
@@ -89,7 +114,7 @@ class LookupReader:
             "user": request.user,
             "app": request.app,
             "restricted": request.restricted,
-            "stored": "missing" if replies is None else "ok",
+            "stored": "missing" if missing else "ok",
             "features": shared,
             "campaigns": per_campaign,
         }

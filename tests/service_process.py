@@ -1,0 +1,66 @@
+"""A ``windvane serve`` process that a test starts on a free port and stops."""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import httpx
+
+from tests.redis_server import free_port
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+class ServiceProcess:
+    def __init__(self, *args: str, token: str | None = None) -> None:
+        self.port = free_port()
+        self.args = [sys.executable, "-m", "windvane", "serve", "--port", str(self.port), *args]
+        self.env = {**os.environ, "PYTHONPATH": str(ROOT / "service")}
+        self.env.pop("WINDVANE_TOKEN", None)
+        if token is not None:
+            self.env["WINDVANE_TOKEN"] = token
+        self.process: subprocess.Popen[bytes] | None = None
+        self.log = ROOT / ".pytest_cache" / f"service-{self.port}.log"
+
+    @property
+    def url(self) -> str:
+        return f"http://127.0.0.1:{self.port}"
+
+    def start(self, timeout_s: float = 30) -> ServiceProcess:
+        self.log.parent.mkdir(exist_ok=True)
+        with self.log.open("wb") as out:
+            self.process = subprocess.Popen(
+                self.args, cwd=ROOT, env=self.env, stdout=out, stderr=subprocess.STDOUT
+            )
+        deadline = time.monotonic() + timeout_s
+        while time.monotonic() < deadline:
+            if self.process.poll() is not None:
+                raise RuntimeError(f"windvane serve exited:\n{self.log.read_text()}")
+            try:
+                httpx.get(f"{self.url}/openapi.json", timeout=0.5)
+                return self
+            except httpx.TransportError:
+                time.sleep(0.05)
+        self.stop()
+        raise RuntimeError(f"windvane serve did not start:\n{self.log.read_text()}")
+
+    def stop(self) -> None:
+        if self.process is not None and self.process.poll() is None:
+            self.process.send_signal(signal.SIGINT)
+            try:
+                self.process.wait(timeout=10)
+            except subprocess.TimeoutExpired:
+                self.process.kill()
+                self.process.wait()
+        self.process = None
+
+    def __enter__(self) -> ServiceProcess:
+        return self.start()
+
+    def __exit__(self, *exc: object) -> None:
+        self.stop()
