@@ -1,5 +1,7 @@
 """The ``windvane`` command: check definitions, replay logs, answer lookups.
 
+Model commands live in ``cli_models``, the service commands in ``cli_serve``.
+
 Every error a user can cause is printed as one line without a traceback; definition
 and usage mistakes exit with status 2, an unreachable store with status 1.
 """
@@ -73,7 +75,7 @@ def _parser() -> argparse.ArgumentParser:
 
     rep = commands.add_parser("replay", help="apply event logs (JSON Lines, plain or gzip)")
     rep.add_argument("logs", nargs="+", metavar="LOG")
-    _store_options(rep)
+    store_options(rep)
     rep.add_argument(
         "--batch",
         type=_positive,
@@ -92,7 +94,7 @@ def _parser() -> argparse.ArgumentParser:
     feat = commands.add_parser(
         "features", help="answer lookup requests: JSON Lines on stdin, features on stdout"
     )
-    _store_options(feat)
+    store_options(feat)
     feat.add_argument(
         "--replay",
         nargs="+",
@@ -103,10 +105,16 @@ def _parser() -> argparse.ArgumentParser:
     feat.add_argument("--rejects", default="windvane-rejects.jsonl", metavar="PATH")
     feat.add_argument("--pretty", action="store_true", help="indented JSON for reading")
     feat.set_defaults(run=_features)
+
+    from windvane.cli_models import add_model_commands
+    from windvane.cli_serve import add_service_commands
+
+    add_model_commands(commands)
+    add_service_commands(commands)
     return parser
 
 
-def _store_options(parser: argparse.ArgumentParser) -> None:
+def store_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--store",
         default=DEFAULT_STORE,
