@@ -39,10 +39,20 @@ class RedisServer:
 
     def start(self) -> RedisServer:
         args = [
-            self.binary, "--port", str(self.port), "--bind", "127.0.0.1",
-            "--dir", str(self.directory), "--save", "", "--daemonize", "no",
-            "--logfile", str(self.directory / "redis.log"),
-        ]  # fmt: skip
+            self.binary,
+            "--port",
+            str(self.port),
+            "--bind",
+            "127.0.0.1",
+            "--dir",
+            str(self.directory),
+            "--save",
+            "",
+            "--daemonize",
+            "no",
+            "--logfile",
+            str(self.directory / "redis.log"),
+        ]
         if self.appendonly:
             args += ["--appendonly", "yes", "--appendfsync", "always"]
         else:

@@ -67,9 +67,17 @@ def test_replay_then_features_on_a_real_server(redis_server, tmp_path: Path) -> 
 
     # The same answers from the embedded store, loaded in the same process.
     embedded = windvane(
-        "features", "--store", "memory://", "--defs", str(FEATUREDEFS), "--replay", str(log),
-        "--rejects", str(tmp_path / "r2.jsonl"), stdin=requests(),
-    )  # fmt: skip
+        "features",
+        "--store",
+        "memory://",
+        "--defs",
+        str(FEATUREDEFS),
+        "--replay",
+        str(log),
+        "--rejects",
+        str(tmp_path / "r2.jsonl"),
+        stdin=requests(),
+    )
     assert embedded.returncode == 0, embedded.stderr
     assert [orjson.loads(line) for line in embedded.stdout.splitlines()] == answers
 

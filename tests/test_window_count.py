@@ -121,10 +121,14 @@ def test_state_is_independent_of_arrival_order_and_batching(store_url: str, tmp_
     rng = random.Random(7)
     base_s = round(time.time()) - 7200
     events = [
-        event(rng.choice(["impression", "request"]), base_s + rng.randrange(7_200_000) / 1000,
-              user=f"u{rng.randrange(5)}", app=f"a{rng.randrange(3)}")
+        event(
+            rng.choice(["impression", "request"]),
+            base_s + rng.randrange(7_200_000) / 1000,
+            user=f"u{rng.randrange(5)}",
+            app=f"a{rng.randrange(3)}",
+        )
         for _ in range(800)
-    ]  # fmt: skip
+    ]
     dumps = []
     for order_seed, batch in ((1, 1), (2, 37), (3, 800)):
         open_store(store_url).flush()
