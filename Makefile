@@ -5,7 +5,7 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed-stamp
 DEMO_EVENTS ?= 100000
 
-.PHONY: install demo test lint format clean
+.PHONY: install demo demo-cli test lint format clean
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -16,6 +16,9 @@ $(STAMP): pyproject.toml
 install: $(STAMP)
 
 demo: install
+	$(BIN)/windvane demo --events $(DEMO_EVENTS)
+
+demo-cli: install
 	$(BIN)/python -m windvane_demo.generate --seed 7 --events $(DEMO_EVENTS) \
 		--out demo/out/demo.jsonl.gz --lookups-out demo/out/lookups.jsonl
 	$(BIN)/windvane check featuredefs

@@ -126,10 +126,20 @@ def _demo(args: argparse.Namespace) -> int:
         stats = replay(engine, [str(log)], rejects)
     registry = SnapshotStore(store.client, feature_shapes(plan), config.store)
     registry.publish(DEMO_MODEL, snapshot_path.read_bytes(), "windvane demo", activate=True)
+    _print_sample_lookups(engine, demo_log.lookups[:3])
     request = _demo_request(demo_log.lookups)
     _print_demo_help(config, stats.applied, stats.rejected, request)
     run_service(dataclasses.replace(config, default_model=DEMO_MODEL))
     return 0
+
+
+def _print_sample_lookups(engine: Engine, requests: list[dict[str, Any]]) -> None:
+    import orjson
+
+    sys.stderr.write("\nA few lookups from the engine (windvane features does the same):\n")
+    for request in requests:
+        answer = engine.lookup(request)
+        sys.stderr.write(orjson.dumps(answer).decode() + "\n")
 
 
 def _demo_request(lookups: list[dict[str, Any]]) -> dict[str, Any]:
