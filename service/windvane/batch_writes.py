@@ -1,9 +1,14 @@
 """The writes of one batch of events, grouped by key so the batch costs one round trip.
 
 Feature states add to it while the batch is compiled; the store then sends one script
-call per hash key and one PFADD per side key. Ordered operations keep their event
-order within a key, which is what makes replay deterministic whatever the batch size;
-bucket counts are integer sums, so they are pre-added per key, field and bucket.
+call per hash key and one PFADD per side key. Within a key, operations keep their
+event order, which is what makes replay deterministic whatever the batch size; bucket
+counts are integer sums, so they are pre-added per key, field and bucket.
+
+Events from a stream carry their entry id: each entry's operations form a segment of
+their own, and the script applies a segment only if its id is above the key's
+watermark for that shard, then raises the watermark in the same atomic step. That is
+what makes a redelivered entry (after a crash) change nothing.
 """
 
 from __future__ import annotations
@@ -13,28 +18,57 @@ from collections.abc import Iterator
 BUCKET_OPCODE = "r"
 
 
-class BatchWrites:
-    __slots__ = ("_buckets", "_expire_at_ms", "_members", "_ops", "events")
+class _Segment:
+    __slots__ = ("buckets", "entry", "ops")
 
-    def __init__(self) -> None:
-        self._ops: dict[str, list[str]] = {}
-        self._buckets: dict[str, dict[tuple[str, int, int], int]] = {}
+    def __init__(self, entry: str) -> None:
+        self.entry = entry
+        self.ops: list[str] = []
+        self.buckets: dict[tuple[str, int, int], int] = {}
+
+    def args(self) -> list[str]:
+        ops = list(self.ops)
+        for (field, bucket, span), n in self.buckets.items():
+            ops += (BUCKET_OPCODE, field, str(bucket), str(n), str(span))
+        return [self.entry, str(len(ops)), *ops]
+
+
+class BatchWrites:
+    """``watermark_field`` (such as ``_w3`` for shard 3) turns on per-entry idempotence."""
+
+    __slots__ = ("_entry", "_expire_at_ms", "_members", "_segments", "events", "watermark_field")
+
+    def __init__(self, watermark_field: str | None = None) -> None:
+        self.watermark_field = watermark_field
+        self._segments: dict[str, list[_Segment]] = {}
         self._expire_at_ms: dict[str, int] = {}
         self._members: dict[str, tuple[set[str], list[int]]] = {}
+        self._entry = ""
         self.events = 0
+
+    def begin_entry(self, entry_id: str) -> None:
+        """Operations from here on belong to the stream entry ``entry_id`` (``ms-seq``)."""
+        self._entry = entry_id
+
+    def _segment(self, key: str) -> _Segment:
+        segments = self._segments.get(key)
+        if segments is None:
+            segment = _Segment(self._entry)
+            self._segments[key] = [segment]
+            return segment
+        last = segments[-1]
+        if last.entry != self._entry:
+            last = _Segment(self._entry)
+            segments.append(last)
+        return last
 
     def op(self, key: str, *args: str) -> None:
         """An ordered update of one field of the hash at ``key``: an opcode and its arguments."""
-        ops = self._ops.get(key)
-        if ops is None:
-            ops = self._ops[key] = []
-        ops.extend(args)
+        self._segment(key).ops.extend(args)
 
     def count(self, key: str, field: str, bucket: int, span: int, n: int = 1) -> None:
         """Add ``n`` to one time bucket of a bucketed count (commutative, so pre-added)."""
-        counts = self._buckets.get(key)
-        if counts is None:
-            counts = self._buckets[key] = {}
+        counts = self._segment(key).buckets
         slot = (field, bucket, span)
         counts[slot] = counts.get(slot, 0) + n
 
@@ -53,15 +87,16 @@ class BatchWrites:
             entry[1][0] = expire_at_ms
 
     def __bool__(self) -> bool:
-        return bool(self._ops or self._buckets or self._members)
+        return bool(self._segments or self._members)
 
     def hash_updates(self) -> Iterator[tuple[str, list[str]]]:
-        """(key, script arguments): expiry, argument count, then the key's operations."""
-        for key in self._ops.keys() | self._buckets.keys():
-            ops = list(self._ops.get(key, ()))
-            for (field, bucket, span), n in self._buckets.get(key, {}).items():
-                ops += (BUCKET_OPCODE, field, str(bucket), str(n), str(span))
-            yield key, [str(self._expire_at_ms.get(key, 0)), str(len(ops)), *ops]
+        """(key, script arguments): expiry, watermark field, segment count, then segments."""
+        watermark = self.watermark_field or ""
+        for key, segments in self._segments.items():
+            args = [str(self._expire_at_ms.get(key, 0)), watermark, str(len(segments))]
+            for segment in segments:
+                args += segment.args()
+            yield key, args
 
     def member_updates(self) -> Iterator[tuple[str, list[str], int]]:
         """(key, members, expire_at_ms) for each HyperLogLog side key."""

@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import Any
 
 from windvane.events import Event
+from windvane.generations import Generations
 from windvane.keys import DEFAULT_GENERATION, KeyLayout
 from windvane.lookup import LookupReader
 from windvane.lookup_request import LookupRequest, parse_lookup_request
@@ -26,14 +27,33 @@ class Engine:
         self.layout = KeyLayout(generation)
         self.router = UpdateRouter(plan, self.layout)
         self.reader = LookupReader(plan, self.layout)
+        self._generations: Generations | None = None
 
     @classmethod
-    def open(cls, defs: str | Path, store_url: str, generation: str = DEFAULT_GENERATION) -> Engine:
-        return cls(load_plan(defs), open_store(store_url), generation)
+    def open(cls, defs: str | Path, store_url: str, generation: str | None = None) -> Engine:
+        """An engine on ``store_url``; without ``generation``, the one lookups read now."""
+        plan = load_plan(defs)
+        store = open_store(store_url)
+        if generation is None:
+            generation = Generations(store.client, store_url).active()  # type: ignore[attr-defined]
+        return cls(plan, store, generation)
+
+    def record(self, events: list[Event]) -> None:
+        """Add applied events to the generation's counts and time range (``generations``)."""
+        if self._generations is None:
+            self._generations = Generations(self.store.client, self.store.url)  # type: ignore[attr-defined]
+            self._generations.register(self.layout.generation, "replay")
+        self._generations.record(self.layout.generation, events)
 
     def apply(self, events: Iterable[Event]) -> int:
         """Apply a batch of validated events in one round trip; returns how many."""
         writes = self.router.batch(events)
+        self.store.apply(writes)
+        return writes.events
+
+    def apply_entries(self, shard: int, entries: Iterable[tuple[str, Event]]) -> int:
+        """Apply stream entries of one shard; an entry already applied to a key changes nothing."""
+        writes = self.router.batch_entries(shard, entries)
         self.store.apply(writes)
         return writes.events
 

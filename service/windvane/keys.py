@@ -8,6 +8,14 @@ Layout (``<gen>`` is the state generation, so a rebuild can sit beside live stat
     wv:<gen>:{a:<app>}:<field>:<bucket>     HyperLogLog: one time bucket of a distinct count
     wv:models                               set: names of published models
     wv:model:{m:<name>}:<part>              one model's snapshots, versions, active arms, audit
+    wv:events:{s<n>}                        stream: shard n of the event stream
+    wv:events:shards                        string: the number of shards producers and workers use
+    wv:dead                                 stream: entries that could not be applied, with reasons
+    wv:lease:<group>:{s<n>}                 string: which worker of a consumer group owns shard n
+    wv:ingest:status:<worker>               string: a worker's last status line, as JSON
+    wv:generation                           string: the generation lookups read
+    wv:generations                          hash: generation -> when created, by whom, from what
+    wv:genstats:{g:<name>}                  hash: events applied to a generation and their times
 
 The part in braces is the Redis Cluster hash tag: all keys of one user (or one app)
 hash to the same slot, so a lookup reads them in one round trip even on a cluster.
@@ -66,3 +74,30 @@ class KeyLayout:
 def model_key(model: str, part: str) -> str:
     """A key of one model's registry; all of a model's keys share one hash slot."""
     return f"{KEY_PREFIX}:model:{{m:{model}}}:{part}"
+
+
+SHARD_COUNT_KEY = f"{KEY_PREFIX}:events:shards"
+DEAD_LETTER_KEY = f"{KEY_PREFIX}:dead"
+ACTIVE_GENERATION_KEY = f"{KEY_PREFIX}:generation"
+GENERATIONS_KEY = f"{KEY_PREFIX}:generations"
+
+
+def stream_key(shard: int) -> str:
+    return f"{KEY_PREFIX}:events:{{s{shard}}}"
+
+
+def lease_key(group: str, shard: int) -> str:
+    return f"{KEY_PREFIX}:lease:{group}:{{s{shard}}}"
+
+
+def ingest_status_key(worker: str) -> str:
+    return f"{KEY_PREFIX}:ingest:status:{worker}"
+
+
+def generation_stats_key(generation: str) -> str:
+    return f"{KEY_PREFIX}:genstats:{{g:{generation}}}"
+
+
+def watermark_field(shard: int) -> str:
+    """The hash field holding the last stream entry of ``shard`` applied to a key."""
+    return f"_w{shard}"

@@ -5,11 +5,13 @@ so each kind's update arithmetic is written once and runs the same on a real ser
 and on the embedded store (fakeredis runs Lua 5.1, as Redis does).
 
 Call: ``KEYS`` the hashes; for each key in turn ``ARGV`` holds its expiry (epoch
-milliseconds), the count of operation arguments that follow, then the operations, each
-an opcode and its arguments. Per key the script reads the touched fields with one
-HMGET, applies every operation in order in Lua, writes the changed fields with one
-HSET and moves the expiry later if needed: a handful of Redis calls per key, however
-many events the batch holds for it.
+milliseconds), its watermark field (empty outside stream ingest), the number of
+segments, then each segment: its stream entry id (or empty), the count of operation
+arguments, and the operations, each an opcode and its arguments. Per key the script
+reads the touched fields with one HMGET, applies in order every segment whose entry id
+is above the watermark, raises the watermark, writes the changed fields with one HSET
+and moves the expiry later if needed: a handful of Redis calls per key, however many
+events the batch holds for it.
 """
 
 from __future__ import annotations
@@ -20,30 +22,50 @@ from windvane.kinds import state_classes
 from windvane.kinds.base import LuaHandler
 
 _DRIVER = """
+local function after(a, b)
+  -- True when stream id a (ms-seq) comes after b; a missing b comes before everything.
+  if not b then return true end
+  local p, q = string.find(a, '-', 1, true), string.find(b, '-', 1, true)
+  local am, bm = tonumber(string.sub(a, 1, p - 1)), tonumber(string.sub(b, 1, q - 1))
+  if am ~= bm then return am > bm end
+  return tonumber(string.sub(a, p + 1)) > tonumber(string.sub(b, q + 1))
+end
 local i = 1
 for ki = 1, #KEYS do
   local k = KEYS[ki]
-  local at = tonumber(ARGV[i])
-  local stop = i + 2 + tonumber(ARGV[i + 1])
-  i = i + 2
-  local fields, seen, j = {}, {}, i
-  while j < stop do
-    local n = N[ARGV[j]]
-    if not n then return redis.error_reply('windvane: unknown opcode ' .. tostring(ARGV[j])) end
-    local f = ARGV[j + 1]
-    if not seen[f] then seen[f] = true; fields[#fields + 1] = f end
-    j = j + 1 + n
+  local at, wm, nseg = tonumber(ARGV[i]), ARGV[i + 1], tonumber(ARGV[i + 2])
+  i = i + 3
+  local fields, seen, segs = {}, {}, {}
+  if wm ~= '' then seen[wm] = true; fields[1] = wm end
+  for s = 1, nseg do
+    local entry, start = ARGV[i], i + 2
+    local stop = start + tonumber(ARGV[i + 1])
+    segs[s] = {entry, start, stop}
+    local j = start
+    while j < stop do
+      local n = N[ARGV[j]]
+      if not n then return redis.error_reply('windvane: unknown opcode ' .. tostring(ARGV[j])) end
+      local f = ARGV[j + 1]
+      if not seen[f] then seen[f] = true; fields[#fields + 1] = f end
+      j = j + 1 + n
+    end
+    i = stop
   end
   S, D, order = {}, {}, {}
   if #fields > 0 then
     local values = redis.call('HMGET', k, unpack(fields))
     for x = 1, #fields do S[fields[x]] = values[x] end
   end
-  j = i
-  while j < stop do
-    local op = ARGV[j]
-    H[op](ARGV, j + 1)
-    j = j + 1 + N[op]
+  for s = 1, nseg do
+    local entry, j, stop = segs[s][1], segs[s][2], segs[s][3]
+    if wm == '' or entry == '' or after(entry, S[wm]) then
+      while j < stop do
+        local op = ARGV[j]
+        H[op](ARGV, j + 1)
+        j = j + 1 + N[op]
+      end
+      if wm ~= '' and entry ~= '' then put(wm, entry) end
+    end
   end
   if #order > 0 then
     local flat = {}
@@ -55,7 +77,6 @@ for ki = 1, #KEYS do
     local current = redis.call('PEXPIRETIME', k)
     if current < 0 or current < at then redis.call('PEXPIREAT', k, at) end
   end
-  i = stop
 end
 return #KEYS
 """

@@ -13,7 +13,7 @@ from collections.abc import Iterable
 
 from windvane.batch_writes import BatchWrites
 from windvane.events import Event
-from windvane.keys import KeyLayout
+from windvane.keys import KeyLayout, watermark_field
 from windvane.plan import Plan, Scope, Updater
 
 
@@ -54,6 +54,15 @@ class UpdateRouter:
     def batch(self, events: Iterable[Event]) -> BatchWrites:
         writes = BatchWrites()
         for event in events:
+            self.add(event, writes)
+            writes.events += 1
+        return writes
+
+    def batch_entries(self, shard: int, entries: Iterable[tuple[str, Event]]) -> BatchWrites:
+        """Writes for stream entries of one shard, each guarded by the key's shard watermark."""
+        writes = BatchWrites(watermark_field(shard))
+        for entry_id, event in entries:
+            writes.begin_entry(entry_id)
             self.add(event, writes)
             writes.events += 1
         return writes
