@@ -15,6 +15,7 @@ from collections.abc import Sequence
 from datetime import UTC, datetime
 
 import orjson
+import redis
 
 from windvane.engine import Engine
 from windvane.errors import (
@@ -24,6 +25,8 @@ from windvane.errors import (
     UsageError,
     WindvaneError,
 )
+from windvane.event_time import parse_time_s
+from windvane.keys import check_generation
 from windvane.lookup_request import parse_lookup_request
 from windvane.plan import load_plan
 from windvane.rejects import RejectsFile
@@ -54,6 +57,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 1
     except WindvaneError as exc:
         sys.stderr.write(f"windvane: {exc}\n")
+        return 1
+    except (redis.exceptions.ConnectionError, redis.exceptions.TimeoutError) as exc:
+        sys.stderr.write(f"windvane: the store did not answer: {exc}\n")
         return 1
     except KeyboardInterrupt:
         sys.stderr.write("windvane: interrupted\n")
@@ -89,6 +95,14 @@ def _parser() -> argparse.ArgumentParser:
         help="where rejected lines go (default windvane-rejects.jsonl)",
     )
     rep.add_argument("--quiet", action="store_true", help="no progress display")
+    rep.add_argument(
+        "--generation",
+        metavar="NAME",
+        help="build this generation (default: the one lookups read now)",
+    )
+    rep.add_argument(
+        "--until", metavar="TS", help="leave out events at or after TS (epoch s or RFC 3339)"
+    )
     rep.set_defaults(run=_replay)
 
     feat = commands.add_parser(
@@ -104,13 +118,16 @@ def _parser() -> argparse.ArgumentParser:
     )
     feat.add_argument("--rejects", default="windvane-rejects.jsonl", metavar="PATH")
     feat.add_argument("--pretty", action="store_true", help="indented JSON for reading")
+    feat.add_argument("--generation", metavar="NAME", help="default: the active generation")
     feat.set_defaults(run=_features)
 
+    from windvane.cli_ingest import add_ingest_commands
     from windvane.cli_models import add_model_commands
     from windvane.cli_serve import add_service_commands
 
     add_model_commands(commands)
     add_service_commands(commands)
+    add_ingest_commands(commands)
     return parser
 
 
@@ -146,25 +163,46 @@ def _check(args: argparse.Namespace) -> int:
 
 
 def _replay(args: argparse.Namespace) -> int:
-    with Engine.open(args.defs, args.store) as engine:
-        stats = _run_replay(engine, args.logs, args.rejects, args.batch, quiet=args.quiet)
+    until = time_option("--until", args.until)
+    if args.generation is not None:
+        check_generation(args.generation)
+    with Engine.open(args.defs, args.store, args.generation) as engine:
+        stats = _run_replay(engine, args.logs, args.rejects, args.batch, args.quiet, until)
         sys.stdout.write(_summary(stats, args.logs, args.rejects, engine) + "\n")
     return 0
 
 
 def _run_replay(
-    engine: Engine, logs: Sequence[str], rejects_path: str, batch: int, quiet: bool
+    engine: Engine,
+    logs: Sequence[str],
+    rejects_path: str,
+    batch: int,
+    quiet: bool,
+    until_s: float | None = None,
 ) -> ReplayStats:
     with RejectsFile(rejects_path) as rejects:
         if quiet:
-            return replay(engine, logs, rejects, batch)
+            return replay(engine, logs, rejects, batch, until_s=until_s)
         with ReplayProgress() as progress:
-            return replay(engine, logs, rejects, batch, progress)
+            return replay(engine, logs, rejects, batch, progress, until_s)
+
+
+def time_option(name: str, text: str | None) -> float | None:
+    if text is None:
+        return None
+    try:
+        value: object = float(text)
+    except ValueError:
+        value = text
+    try:
+        return parse_time_s(value)
+    except ValueError as exc:
+        raise UsageError(f"{name}: {exc}") from None
 
 
 def _features(args: argparse.Namespace) -> int:
     failed = 0
-    with Engine.open(args.defs, args.store) as engine:
+    with Engine.open(args.defs, args.store, args.generation) as engine:
         if args.replay:
             stats = _run_replay(engine, args.replay, args.rejects, DEFAULT_BATCH_SIZE, quiet=True)
             sys.stderr.write(_summary(stats, args.replay, args.rejects, engine) + "\n")
@@ -196,6 +234,8 @@ def _summary(stats: ReplayStats, logs: Sequence[str], rejects_path: str, engine:
         f"  applied  {stats.applied:>12,}  ({kinds or 'none'})",
         f"  rejected {stats.rejected:>12,}  -> {rejects_path}",
     ]
+    if stats.after_until:
+        lines.append(f"  left out {stats.after_until:>12,}  (at or after --until)")
     if stats.first_ts_s is not None and stats.last_ts_s is not None:
         lines.append(f"  event time {_iso(stats.first_ts_s)} .. {_iso(stats.last_ts_s)}")
     lines.append(f"  store {engine.store.url} (generation {engine.layout.generation})")

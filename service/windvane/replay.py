@@ -27,6 +27,7 @@ class ReplayStats:
     lines: int = 0
     applied: int = 0
     rejected: int = 0
+    after_until: int = 0
     by_kind: Counter[str] = field(default_factory=Counter)
     first_ts_s: float | None = None
     last_ts_s: float | None = None
@@ -48,8 +49,13 @@ def replay(
     rejects: RejectsFile,
     batch_size: int = DEFAULT_BATCH_SIZE,
     progress: ProgressCallback | None = None,
+    until_s: float | None = None,
 ) -> ReplayStats:
-    """Apply every valid event of ``paths`` in order; rejected lines go to ``rejects``."""
+    """Apply every valid event of ``paths`` in order; rejected lines go to ``rejects``.
+
+    With ``until_s``, events at or after that time are left out (and counted), so that a
+    rebuilt generation can be topped up from the stream from exactly that time on.
+    """
     if batch_size < 1:
         raise ValueError("batch_size must be at least 1")
     stats = ReplayStats()
@@ -62,6 +68,9 @@ def replay(
             except BadEvent as exc:
                 rejects.write(path, number, exc.field, exc.reason, line)
                 stats.rejected += 1
+                continue
+            if until_s is not None and event.ts_s >= until_s:
+                stats.after_until += 1
                 continue
             batch.append(event)
             if len(batch) >= batch_size:
@@ -78,6 +87,7 @@ def replay(
 
 def _flush(engine: Engine, batch: list[Event], stats: ReplayStats) -> None:
     engine.apply(batch)
+    engine.record(batch)
     stats.applied += len(batch)
     for event in batch:
         stats.by_kind[event.kind] += 1
