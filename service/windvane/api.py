@@ -16,6 +16,7 @@ import time
 from typing import Any
 
 import orjson
+import redis
 from fastapi import APIRouter, Depends, FastAPI, Query, Request, Response
 from fastapi.exceptions import RequestValidationError
 
@@ -34,6 +35,8 @@ from windvane.errors import (
     UnknownModel,
     WindvaneError,
 )
+from windvane.event_stream import append_async, decode_body, prepare
+from windvane.ingest_worker import read_statuses
 from windvane.lookup_request import parse_lookup_request
 from windvane.lookup_service import check_deadline_ms
 from windvane.model_registry import Arm
@@ -272,6 +275,34 @@ async def rollback(request: Request, name: str, actor: str = Depends(require_wri
     return _json({"name": name, "active": split.to_dict()})
 
 
+@router.post(
+    "/v1/events",
+    summary="Append events to the stream (a JSON array or JSON Lines); bad ones are listed",
+    responses=ERRORS,
+    openapi_extra={
+        "requestBody": {
+            "required": True,
+            "description": "events as in the log format: a JSON array, or one JSON object per line",
+            "content": {
+                "application/json": {"schema": {"type": "array", "items": {"type": "object"}}},
+                "application/x-ndjson": {"schema": {"type": "string"}},
+            },
+        }
+    },
+    tags=["events"],
+)
+async def post_events(request: Request, actor: str = Depends(require_writer)) -> Response:
+    state = _state(request)
+    if state.stream is None:
+        raise BadRequest("", "this service has no event stream: start it with --stream redis://...")
+    items = decode_body(await request.body())
+    accepted, rejected = prepare(items, state.stream.shards)
+    if accepted:
+        await append_async(state.stream.client, accepted)
+    body = {"accepted": len(accepted), "rejected": [r.to_dict() for r in rejected]}
+    return _json(body, status=200 if accepted or not rejected else 422)
+
+
 @router.get("/v1/health", summary="Whether the store answers, and what is loaded", tags=["ops"])
 async def health(request: Request) -> Response:
     state = _state(request)
@@ -283,12 +314,17 @@ async def health(request: Request) -> Response:
     body = {
         "status": "ok" if reachable else "degraded",
         "store": "ok" if reachable else "unreachable",
-        "generation": state.config.generation,
+        "generation": state.generation,
         "pid": os.getpid(),
         "features": state.plan.feature_names(),
         "models": state.models.names(),
         "lookups_without_store": state.lookups.store_misses,
     }
+    if state.stream is not None:
+        try:
+            body["ingest"] = await asyncio.to_thread(read_statuses, state.stream.sync)
+        except (redis.exceptions.ConnectionError, redis.exceptions.TimeoutError):
+            body["ingest"] = None
     return _json(body, status=200 if reachable else 503)
 
 
@@ -317,6 +353,14 @@ def install_error_handlers(app: FastAPI) -> None:
     async def _store(request: Request, exc: StoreError) -> Response:
         return error(503, "", str(exc))
 
+    @app.exception_handler(redis.exceptions.ConnectionError)
+    async def _down(request: Request, exc: Exception) -> Response:
+        return error(503, "", f"the store did not answer: {exc}")
+
+    @app.exception_handler(redis.exceptions.TimeoutError)
+    async def _slow(request: Request, exc: Exception) -> Response:
+        return error(503, "", f"the store did not answer in time: {exc}")
+
     @app.exception_handler(WindvaneError)
     async def _other(request: Request, exc: WindvaneError) -> Response:
         return error(400, "", str(exc))
@@ -327,7 +371,7 @@ def install_error_handlers(app: FastAPI) -> None:
         field = ".".join(str(p) for p in first.get("loc", ()) if p != "body")
         return error(422, field, str(first.get("msg", "invalid")))
 
-    del _input, _unknown, _auth, _store, _other, _validation
+    del _input, _unknown, _auth, _store, _down, _slow, _other, _validation
 
 
 __all__ = ["install_error_handlers", "router"]

@@ -34,7 +34,9 @@ def add_service_commands(commands: Any) -> None:
     serve.add_argument("--config", metavar="FILE", help="TOML settings file")
     serve.add_argument("--store", metavar="URL", help="memory:// (default) or redis://host:port/db")
     serve.add_argument("--defs", metavar="DIR", help="feature definitions (default featuredefs)")
-    serve.add_argument("--generation", metavar="NAME")
+    serve.add_argument("--generation", metavar="NAME", help="pin one (default: follow the active)")
+    serve.add_argument("--stream", metavar="URL", help="event stream for POST /v1/events")
+    serve.add_argument("--shards", type=int, help="stream shards (default: the stream's, else 4)")
     serve.add_argument("--host", help="address to listen on (default 127.0.0.1)")
     serve.add_argument("--port", type=int, help="port (default 8700)")
     serve.add_argument("--workers", type=int, help="processes (default 1; needs redis://)")
@@ -65,6 +67,7 @@ def add_service_commands(commands: Any) -> None:
 def _serve(args: argparse.Namespace) -> int:
     overrides = {
         "store": args.store, "defs": args.defs, "generation": args.generation,
+        "stream": args.stream, "shards": args.shards,
         "host": args.host, "port": args.port, "workers": args.workers,
         "replay": args.replay, "deadline_ms": args.deadline_ms,
         "default_model": args.default_model, "cache_ms": args.cache_ms,

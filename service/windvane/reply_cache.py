@@ -29,6 +29,9 @@ class ReplyCache:
             return False, None
         return True, entry[1]
 
+    def clear(self) -> None:
+        self._entries.clear()
+
     def put(self, command: tuple[Any, ...], reply: Any, now_s: float) -> None:
         if self.max_age_s == 0:
             return

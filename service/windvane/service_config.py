@@ -25,7 +25,6 @@ from typing import Any
 import orjson
 
 from windvane.errors import UsageError
-from windvane.keys import DEFAULT_GENERATION
 from windvane.lookup_service import DEFAULT_DEADLINE_MS
 from windvane.reply_cache import MAX_AGE_LIMIT_S
 
@@ -36,7 +35,10 @@ ENVIRONMENT_KEY = "WINDVANE_SERVICE_CONFIG"
 class ServiceConfig:
     store: str = "memory://"
     defs: str = "featuredefs"
-    generation: str = DEFAULT_GENERATION
+    # None follows the active generation (``windvane generations activate``).
+    generation: str | None = None
+    stream: str | None = None  # default: the store, when it is a Redis server
+    shards: int | None = None
     host: str = "127.0.0.1"
     port: int = 8700
     workers: int = 1
@@ -54,6 +56,12 @@ class ServiceConfig:
     @property
     def writes_enabled(self) -> bool:
         return not self.read_only
+
+    @property
+    def stream_url(self) -> str | None:
+        if self.stream is not None:
+            return self.stream
+        return self.store if self.store.startswith(("redis://", "rediss://", "unix://")) else None
 
     def check(self) -> ServiceConfig:
         """Refuse settings that would be unsafe or cannot work, with how to fix them."""

@@ -6,8 +6,16 @@ import asyncio
 import logging
 from dataclasses import dataclass, field
 
+import redis
+import redis.asyncio
+
 from windvane import local_time
 from windvane.engine import Engine
+from windvane.errors import WindvaneError
+from windvane.event_stream import DEFAULT_SHARDS, shard_count
+from windvane.generations import Generations
+from windvane.keys import KeyLayout
+from windvane.lookup import LookupReader
 from windvane.lookup_service import LookupService
 from windvane.model_cache import ModelCache
 from windvane.model_registry import SnapshotStore
@@ -39,7 +47,13 @@ class ServiceState:
     registry: SnapshotStore
     models: ModelCache
     lookups: LookupService
+    generations: Generations
+    stream: EventStream | None = None
     tasks: list[asyncio.Task[None]] = field(default_factory=list)
+
+    @property
+    def generation(self) -> str:
+        return self.lookups.reader.layout.generation
 
     @classmethod
     async def start(cls, config: ServiceConfig) -> ServiceState:
@@ -47,7 +61,9 @@ class ServiceState:
         store = open_store(config.store)
         if not isinstance(store, RedisStateStore):
             raise TypeError("the service needs a Redis-compatible store")
-        engine = Engine(plan, store, config.generation)
+        generations = Generations(store.client, config.store)
+        generation = config.generation or await asyncio.to_thread(generations.active)
+        engine = Engine(plan, store, generation)
         if config.replay:
             with RejectsFile(config.rejects) as rejects:
                 stats = await asyncio.to_thread(replay, engine, list(config.replay), rejects)
@@ -69,20 +85,65 @@ class ServiceState:
             config.default_model,
         )
         await asyncio.to_thread(local_time.warm_up)
-        state = cls(config, plan, engine, reader, registry, models, lookups)
+        stream = await asyncio.to_thread(EventStream.open, config) if config.stream_url else None
+        state = cls(config, plan, engine, reader, registry, models, lookups, generations, stream)
         try:
             await state.refresh_models()
         except Exception as exc:  # the refresher keeps trying; serve without models meanwhile
             log.warning("model registry not read at start: %s", exc)
         state.tasks.append(asyncio.create_task(models.run()))
+        if config.generation is None:
+            state.tasks.append(asyncio.create_task(state._follow_generation()))
         return state
 
     async def refresh_models(self) -> None:
         await asyncio.to_thread(self.models.refresh)
+
+    async def _follow_generation(self) -> None:
+        """Switch lookups to the active generation within a second of its activation."""
+        while True:
+            await asyncio.sleep(self.config.refresh_ms / 1000)
+            try:
+                active = await asyncio.to_thread(self.generations.active)
+            except WindvaneError:
+                continue
+            if active != self.generation:
+                self.switch_generation(active)
+
+    def switch_generation(self, generation: str) -> None:
+        """One assignment: every lookup that starts after it reads the new generation."""
+        self.lookups.reader = LookupReader(self.plan, KeyLayout(generation))
+        self.lookups.cache.clear()
+        log.warning("lookups now read generation %s", generation)
 
     async def close(self) -> None:
         for task in self.tasks:
             task.cancel()
         await asyncio.gather(*self.tasks, return_exceptions=True)
         await self.reader.close()
+        if self.stream is not None:
+            await self.stream.close()
         self.engine.close()
+
+
+class EventStream:
+    """The service's producer side of the event stream, for ``POST /v1/events``."""
+
+    def __init__(self, sync: redis.Redis, client: redis.asyncio.Redis, shards: int) -> None:
+        self.sync = sync
+        self.client = client
+        self.shards = shards
+
+    @classmethod
+    def open(cls, config: ServiceConfig) -> EventStream:
+        url = config.stream_url or ""
+        sync = redis.Redis.from_url(url, socket_timeout=5, socket_connect_timeout=5)
+        try:
+            shards = shard_count(sync, config.shards)
+        except (redis.exceptions.ConnectionError, redis.exceptions.TimeoutError):
+            shards = config.shards or DEFAULT_SHARDS
+        return cls(sync, redis.asyncio.Redis.from_url(url, socket_timeout=5), shards)
+
+    async def close(self) -> None:
+        await self.client.aclose()
+        self.sync.close()
