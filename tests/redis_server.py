@@ -83,6 +83,13 @@ class RedisServer:
                 self.process.wait()
         self.process = None
 
+    def kill(self) -> None:
+        """SIGKILL, like a crash: what append-only persistence has not synced is lost."""
+        if self.process is not None and self.process.poll() is None:
+            self.process.kill()
+            self.process.wait()
+        self.process = None
+
     def cleanup(self) -> None:
         self.stop()
         shutil.rmtree(self.directory, ignore_errors=True)
