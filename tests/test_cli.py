@@ -113,3 +113,61 @@ def test_missing_log_is_a_usage_error(tmp_path: Path) -> None:
         done.stderr.decode().strip()
         == f"windvane: cannot read log {tmp_path / 'nope.jsonl'}: No such file or directory"
     )
+
+
+def test_send_ingest_reserve_and_generations_from_the_command_line(
+    redis_server, tmp_path: Path
+) -> None:
+    from windvane.store import open_store
+
+    url = redis_server.url
+    open_store(url).flush()
+    log = write_log(tmp_path / "log.jsonl")
+    sent = windvane(
+        "send", str(log), "--stream", url, "--shards", "3", "--rejects", str(tmp_path / "r.jsonl")
+    )
+    assert sent.returncode == 0, sent.stderr
+    assert sent.stdout.decode().startswith("sent 400 events to 3 shards")
+    mismatch = windvane(
+        "send", str(log), "--stream", url, "--shards", "5", "--rejects", str(tmp_path / "r2.jsonl")
+    )
+    assert mismatch.returncode == 2
+    assert b"already has 3 shards" in mismatch.stderr
+    reserved = windvane(
+        "ingest",
+        "--stream",
+        url,
+        "--store",
+        url,
+        "--generation",
+        "g7",
+        "--from-ts",
+        str(NOW - 60),
+        "--reserve",
+    )
+    assert reserved.returncode == 0, reserved.stderr
+    assert b"reserved the stream for generation g7" in reserved.stdout
+    replayed = windvane(
+        "replay",
+        str(log),
+        "--store",
+        url,
+        "--generation",
+        "g7",
+        "--until",
+        str(NOW - 3400),
+        "--rejects",
+        str(tmp_path / "r3.jsonl"),
+        "--quiet",
+    )
+    assert replayed.returncode == 0, replayed.stderr
+    assert "left out" in replayed.stdout.decode()
+    listed = windvane("generations", "--store", url).stdout.decode()
+    assert "* main" in listed
+    assert "  g7" in listed
+    assert windvane("generations", "activate", "g7", "--store", url).returncode == 0
+    assert "* g7" in windvane("generations", "--store", url).stdout.decode()
+    refused = windvane("generations", "drop", "g7", "--store", url)
+    assert refused.returncode == 2
+    assert b"is the active generation" in refused.stderr
+    assert windvane("generations", "activate", "nope", "--store", url).returncode == 2

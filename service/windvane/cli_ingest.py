@@ -53,6 +53,14 @@ def add_ingest_commands(commands: Any) -> None:
         "--from-ts", metavar="TS", help="apply only events at or after TS (tops up a rebuild)"
     )
     ingest.add_argument("--status-every", type=float, default=5.0, metavar="SECONDS")
+    ingest.add_argument(
+        "--retain", type=float, default=7200, metavar="SECONDS",
+        help="stream history kept after acknowledgement, for top-ups (default 7200)",
+    )  # fmt: skip
+    ingest.add_argument(
+        "--reserve", action="store_true",
+        help="only create this generation's consumer groups (holds the stream), then exit",
+    )  # fmt: skip
     ingest.set_defaults(run=_ingest)
 
     gens = commands.add_parser("generations", help="list, activate or drop state generations")
@@ -123,10 +131,18 @@ def _ingest(args: argparse.Namespace) -> int:
         claim_idle_ms=args.claim_idle_ms,
         from_ts=time_option("--from-ts", args.from_ts),
         status_every_s=args.status_every,
+        retain_s=args.retain,
     )
     if args.name:
         settings.name = args.name
     worker = IngestWorker(engine, stream, settings, stream_url=args.stream)
+    if args.reserve:
+        shards = worker.reserve()
+        sys.stdout.write(
+            f"reserved the stream for generation {generation} (group {worker.group}) on "
+            f"shards {','.join(map(str, shards))}\n"
+        )
+        return 0
     stopping = False
 
     def stop(*_: object) -> None:

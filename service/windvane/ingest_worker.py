@@ -63,6 +63,9 @@ class IngestSettings:
     from_ts: float | None = None
     status_every_s: float = 5.0
     trim_every_s: float = 10.0
+    # Stream history kept after every group has acknowledged it, so a rebuilt generation
+    # can be topped up from a time in the recent past (see the backfill runbook).
+    retain_s: float = 7200.0
     name: str = field(default_factory=lambda: f"{socket.gethostname()}-{uuid.uuid4().hex[:8]}")
 
 
@@ -206,6 +209,18 @@ class IngestWorker:
                 raise
         self._groups_ready.add(number)
 
+    def reserve(self) -> list[int]:
+        """Create this generation's consumer groups without applying anything.
+
+        A group holds its place in the stream, and workers never trim past a group's
+        place, so reserving before a long rebuild keeps the stream from ``from_ts`` on.
+        """
+        self._shards = self._shards or shard_count(self.stream)
+        numbers = list(self._eligible())
+        for number in numbers:
+            self._ensure_group(number)
+        return numbers
+
     def release(self) -> None:
         """Give the leases back at a clean stop, so another worker can take over at once."""
         for number in list(self.owned):
@@ -301,10 +316,11 @@ class IngestWorker:
     # ---- housekeeping ----
 
     def _trim(self) -> None:
-        """Drop entries every consumer group is done with: never one still pending or unread."""
+        """Drop entries every group is done with and older than ``retain_s``; never one unread."""
+        kept_from = f"{int((time.time() - self.settings.retain_s) * 1000)}-0"
         for number in self.owned:
             key = stream_key(number)
-            floor: str | None = None
+            floor: str | None = kept_from
             for group in self.stream.xinfo_groups(key):
                 pending = self.stream.xpending(key, group["name"])
                 if int(pending["pending"]):
