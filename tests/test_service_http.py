@@ -271,3 +271,28 @@ def test_openapi_documents_every_endpoint(service: ServiceProcess) -> None:
     schemas = spec["components"]["schemas"]
     for name in ("LookupBody", "LookupAnswer", "Snapshot", "Term", "ActivateBody", "ErrorBody"):
         assert name in schemas, name
+
+
+def test_serve_replay_loads_the_embedded_store_before_listening(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    log = tmp_path / "log.jsonl"
+    log.write_bytes(b"\n".join(good_lines(300, seed=12)) + b"\n")
+    args = (
+        "--store",
+        "memory://",
+        "--defs",
+        str(FEATUREDEFS),
+        "--replay",
+        str(log),
+        "--read-only",
+        "--deadline-ms",
+        "2000",
+    )
+    with ServiceProcess(*args) as svc:
+        answer = httpx.post(
+            f"{svc.url}/v1/lookup", json={"user": "user-3", "app": "app-1", "ts": NOW}, timeout=5
+        ).json()
+    expected = engine_for(FEATUREDEFS, "memory://serve-replay-check")
+    with RejectsFile(tmp_path / "r.jsonl") as rejects:
+        replay(expected, [str(log)], rejects)
+    assert without_timing(answer) == expected.lookup({"user": "user-3", "app": "app-1", "ts": NOW})
+    assert answer["features"]["session_depth"] is not None
