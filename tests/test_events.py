@@ -58,6 +58,8 @@ def test_unknown_fields_are_ignored_and_flags_read() -> None:
     assert event.device.pxratio == 2.5
     assert event.geo is not None
     assert event.geo.country == "DEU"
+    assert event.field("geo.country") == "DEU"
+    assert event.field("device.model") is None
 
 
 @pytest.mark.parametrize(
@@ -74,7 +76,7 @@ def test_unknown_fields_are_ignored_and_flags_read() -> None:
             {"kind": "request", "ts": 1796000000, "id": "a", "device": {"pxratio": 0}},
             "device.pxratio",
         ),
-        ({"kind": "request", "ts": 1796000000, "id": "a", "slot": {"w": 320}}, "slot"),
+        ({"kind": "request", "ts": 1796000000, "id": "a", "slot": {"w": 320}}, "slot.h"),
         ({"kind": "request", "ts": True, "id": "a"}, "ts"),
         ({"kind": "request", "ts": 1796000000, "id": 7}, "id"),
         ({"kind": "request", "ts": 1796000000, "id": "a", "app": ""}, "app"),

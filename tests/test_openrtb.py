@@ -277,7 +277,7 @@ def test_unknown_fields_are_ignored() -> None:
         ({"imp": [{"id": 1}]}, "imp[0].id"),
         ({"imp": [{"id": "1"}, {"id": "1"}]}, "imp[1].id"),
         ({"imp": [{"id": "1", "banner": {"w": "300", "h": 250}}]}, "imp[0].banner.w"),
-        ({"imp": [{"id": "1", "banner": {"w": 300}}]}, "imp[0].banner"),
+        ({"imp": [{"id": "1", "banner": {"w": 300}}]}, "imp[0].banner.h"),
         ({"imp": [{"id": "1", "banner": {"format": {"w": 1}}}]}, "imp[0].banner.format"),
         (
             {"imp": [{"id": "1", "banner": {"format": [{"w": 0, "h": 50}]}}]},
