@@ -13,6 +13,7 @@ what makes a redelivered entry (after a crash) change nothing.
 
 from __future__ import annotations
 
+import time
 from collections.abc import Iterator
 
 BUCKET_OPCODE = "r"
@@ -36,10 +37,16 @@ class _Segment:
 class BatchWrites:
     """``watermark_field`` (such as ``_w3`` for shard 3) turns on per-entry idempotence."""
 
-    __slots__ = ("_entry", "_expire_at_ms", "_members", "_segments", "events", "watermark_field")
+    __slots__ = (
+        "_entry", "_expire_at_ms", "_members", "_segments", "events", "now_ms",
+        "watermark_field",
+    )  # fmt: skip
 
     def __init__(self, watermark_field: str | None = None) -> None:
         self.watermark_field = watermark_field
+        # Wall-clock time of the batch: an event whose key would already have expired
+        # is left out, so batching never decides whether it briefly existed.
+        self.now_ms = int(time.time() * 1000)
         self._segments: dict[str, list[_Segment]] = {}
         self._expire_at_ms: dict[str, int] = {}
         self._members: dict[str, tuple[set[str], list[int]]] = {}

@@ -28,7 +28,11 @@ ENTRY_FIELD = b"event"
 
 
 def shard_of(event: Event, shards: int) -> int:
-    key = event.user or event.app or event.id
+    return shard_of_key(event.user or event.app or event.id, shards)
+
+
+def shard_of_key(key: str, shards: int) -> int:
+    """The shard of a user id (or app, or auction id): stable across processes and languages."""
     digest = hashlib.blake2b(key.encode(), digest_size=8).digest()
     return int.from_bytes(digest, "big") % shards
 

@@ -8,10 +8,11 @@ Call: ``KEYS`` the hashes; for each key in turn ``ARGV`` holds its expiry (epoch
 milliseconds), its watermark field (empty outside stream ingest), the number of
 segments, then each segment: its stream entry id (or empty), the count of operation
 arguments, and the operations, each an opcode and its arguments. Per key the script
-reads the touched fields with one HMGET, applies in order every segment whose entry id
-is above the watermark, raises the watermark, writes the changed fields with one HSET
-and moves the expiry later if needed: a handful of Redis calls per key, however many
-events the batch holds for it.
+reads the touched fields with one HMGET and decodes each once, applies in order every
+segment whose entry id is above the watermark, raises the watermark, encodes and writes
+the changed fields with one HSET and moves the expiry later if needed: a handful of
+Redis calls per key, however many events the batch holds for it. The expiry only moves
+later: ``PEXPIREAT ... GT`` extends it, and a key without one (new) gets it set.
 """
 
 from __future__ import annotations
@@ -35,47 +36,64 @@ for ki = 1, #KEYS do
   local k = KEYS[ki]
   local at, wm, nseg = tonumber(ARGV[i]), ARGV[i + 1], tonumber(ARGV[i + 2])
   i = i + 3
-  local fields, seen, segs = {}, {}, {}
-  if wm ~= '' then seen[wm] = true; fields[1] = wm end
+  local fields, codes, segs = {}, {}, {}
+  if wm ~= '' then codes[wm] = false; fields[1] = wm end
   for s = 1, nseg do
     local entry, start = ARGV[i], i + 2
     local stop = start + tonumber(ARGV[i + 1])
     segs[s] = {entry, start, stop}
     local j = start
     while j < stop do
-      local n = N[ARGV[j]]
-      if not n then return redis.error_reply('windvane: unknown opcode ' .. tostring(ARGV[j])) end
+      local code = ARGV[j]
+      local n = N[code]
+      if not n then return redis.error_reply('windvane: unknown opcode ' .. tostring(code)) end
       local f = ARGV[j + 1]
-      if not seen[f] then seen[f] = true; fields[#fields + 1] = f end
+      if codes[f] == nil then codes[f] = code; fields[#fields + 1] = f end
       j = j + 1 + n
     end
     i = stop
   end
-  S, D, order = {}, {}, {}
+  local stored, values, changed = {}, {}, {}
   if #fields > 0 then
-    local values = redis.call('HMGET', k, unpack(fields))
-    for x = 1, #fields do S[fields[x]] = values[x] end
+    local raw = redis.call('HMGET', k, unpack(fields))
+    for x = 1, #fields do
+      local f = fields[x]
+      stored[f] = raw[x]
+      if codes[f] then values[f] = DEC[codes[f]](raw[x]) end
+    end
   end
+  local mark = wm ~= '' and stored[wm] or false
+  local dirty = false
   for s = 1, nseg do
     local entry, j, stop = segs[s][1], segs[s][2], segs[s][3]
-    if wm == '' or entry == '' or after(entry, S[wm]) then
+    if wm == '' or entry == '' or after(entry, mark) then
       while j < stop do
-        local op = ARGV[j]
-        H[op](ARGV, j + 1)
-        j = j + 1 + N[op]
+        local code, f = ARGV[j], ARGV[j + 1]
+        local v, touched = APP[code](values[f], ARGV, j + 1)
+        values[f] = v
+        if touched then changed[f] = true; dirty = true end
+        j = j + 1 + N[code]
       end
-      if wm ~= '' and entry ~= '' then put(wm, entry) end
+      if wm ~= '' and entry ~= '' then mark = entry end
     end
   end
-  if #order > 0 then
+  if dirty or (mark and mark ~= stored[wm]) then
     local flat = {}
-    for x = 1, #order do
-      flat[2 * x - 1] = order[x]
-      flat[2 * x] = S[order[x]]
+    for x = 1, #fields do
+      local f = fields[x]
+      if changed[f] then
+        flat[#flat + 1] = f
+        flat[#flat + 1] = ENC[codes[f]](values[f])
+      end
+    end
+    if wm ~= '' and mark and mark ~= stored[wm] then
+      flat[#flat + 1] = wm
+      flat[#flat + 1] = mark
     end
     redis.call('HSET', k, unpack(flat))
-    local current = redis.call('PEXPIRETIME', k)
-    if current < 0 or current < at then redis.call('PEXPIREAT', k, at) end
+    if redis.call('PEXPIREAT', k, at, 'GT') == 0 and redis.call('PTTL', k) == -1 then
+      redis.call('PEXPIREAT', k, at)
+    end
   end
 end
 return #KEYS
@@ -89,18 +107,13 @@ def build_update_script() -> str:
             if opcode in handlers and handlers[opcode] != handler:
                 raise RuntimeError(f"two state classes declare Lua opcode {opcode!r}")
             handlers[opcode] = handler
-    parts = [
-        "local S, D, order = {}, {}, {}",
-        "local function put(f, x)",
-        "  S[f] = x",
-        "  if not D[f] then D[f] = true; order[#order + 1] = f end",
-        "end",
-        "local H, N = {}, {}",
-    ]
+    parts = ["local N, DEC, APP, ENC = {}, {}, {}, {}"]
     for opcode in sorted(handlers):
         handler = handlers[opcode]
         parts.append(f"N[{opcode!r}] = {handler.arity}")
-        parts.append(f"H[{opcode!r}] = function(a, i)\n{handler.body.strip()}\nend")
+        parts.append(f"DEC[{opcode!r}] = function(s)\n{handler.decode.strip()}\nend")
+        parts.append(f"APP[{opcode!r}] = function(v, a, i)\n{handler.apply.strip()}\nend")
+        parts.append(f"ENC[{opcode!r}] = function(v)\n{handler.encode.strip()}\nend")
     parts.append(_DRIVER.strip())
     return "\n".join(parts) + "\n"
 

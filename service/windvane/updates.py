@@ -9,47 +9,92 @@ traffic would have.
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
+from operator import attrgetter
 
 from windvane.batch_writes import BatchWrites
 from windvane.events import Event
-from windvane.keys import KeyLayout, watermark_field
+from windvane.keys import KEY_FIELD_LETTERS, KeyLayout, watermark_field
 from windvane.plan import Plan, Scope, Updater
+
+KeyOf = Callable[[Event], "str | None"]
+Update = Callable[[Event, str, str, BatchWrites], None]
+
+
+def key_builder(layout: KeyLayout, fields: tuple[str, ...]) -> KeyOf:
+    """A function from an event to its key for ``fields`` (None when a field is missing).
+
+    It builds the same name as ``KeyLayout.state_key``, specialised once per key shape
+    because it runs for every event and every key the event touches.
+    """
+    prefix = layout.prefix
+    head = attrgetter(fields[0])
+    tag = KEY_FIELD_LETTERS[fields[0]]
+    if len(fields) == 1:
+
+        def single(event: Event) -> str | None:
+            value = head(event)
+            return None if value is None else f"{prefix}{{{tag}:{value}}}"
+
+        return single
+    rest = [(attrgetter(name), KEY_FIELD_LETTERS[name]) for name in fields[1:]]
+
+    def compound(event: Event) -> str | None:
+        value = head(event)
+        if value is None:
+            return None
+        parts = [f"{prefix}{{{tag}:{value}}}"]
+        for get, letter in rest:
+            part = get(event)
+            if part is None:
+                return None
+            parts.append(f"{letter}:{part}")
+        return ":".join(parts)
+
+    return compound
 
 
 class UpdateRouter:
-    """Precomputed routes from an event kind to (scope, updaters), walked once per event."""
+    """Precomputed routes from an event kind to its keys and updates, walked once per event."""
 
     def __init__(self, plan: Plan, layout: KeyLayout) -> None:
         self.layout = layout
-        self._routes: dict[str, list[tuple[Scope, list[Updater]]]] = {}
+        self._routes: dict[str, list[tuple[KeyOf, bool, int, list[tuple[Update, str, bool]]]]] = {}
         for kind, updaters in plan.updaters.items():
             grouped: dict[int, tuple[Scope, list[Updater]]] = {}
             for updater in updaters:
                 grouped.setdefault(id(updater.scope), (updater.scope, []))[1].append(updater)
-            self._routes[kind] = list(grouped.values())
+            self._routes[kind] = [
+                (
+                    key_builder(layout, scope.fields),
+                    scope.per_user,
+                    scope.ttl_ms,
+                    [(u.state.update, u.field, u.skip_restricted) for u in scope_updaters],
+                )
+                for scope, scope_updaters in grouped.values()
+            ]
 
     def add(self, event: Event, writes: BatchWrites) -> None:
         routes = self._routes.get(event.kind)
-        if not routes:
+        if routes is None:
             return
-        restricted = event.restricted
-        state_key = self.layout.state_key
-        for scope, updaters in routes:
-            if restricted and scope.per_user:
+        restricted = event.coppa or event.lmt
+        for key_of, per_user, ttl_ms, updates in routes:
+            if restricted and per_user:
                 continue
-            values = tuple(getattr(event, name) for name in scope.fields)
-            if None in values:
+            if event.ts_ms + ttl_ms <= writes.now_ms:
+                continue  # past its retention: the key would expire at once
+            key = key_of(event)
+            if key is None:
                 continue
-            key = state_key(scope.fields, values)
             touched = False
-            for updater in updaters:
-                if restricted and updater.skip_restricted:
+            for update, field, skip_restricted in updates:
+                if restricted and skip_restricted:
                     continue
-                updater.state.update(event, key, updater.field, writes)
+                update(event, key, field, writes)
                 touched = True
             if touched:
-                writes.keep_until(key, event.ts_ms + scope.ttl_ms)
+                writes.keep_until(key, event.ts_ms + ttl_ms)
 
     def batch(self, events: Iterable[Event]) -> BatchWrites:
         writes = BatchWrites()

@@ -27,14 +27,19 @@ KeyName = Annotated[str, Field(pattern=r"^[a-z+]+$")]
 
 @dataclass(frozen=True)
 class LuaHandler:
-    """One update operation in Lua: ``arity`` arguments, the first always the hash field.
+    """One update operation in Lua, in three parts, so a field is parsed once per call.
 
-    The body runs with ``a`` (ARGV), ``i`` (index of the field argument), ``S`` (the
-    key's current field values, false when absent) and ``put(field, value)``.
+    ``arity`` counts the operation's arguments, the first always the hash field.
+    ``decode`` is the body of ``function(s)``: the stored string (false when absent) to a
+    Lua value. ``apply`` is the body of ``function(v, a, i)``: returns the new value and
+    whether it changed; ``a`` is ARGV and ``a[i]`` the field. ``encode`` is the body of
+    ``function(v)``: the value back to its canonical stored string.
     """
 
     arity: int
-    body: str
+    decode: str
+    apply: str
+    encode: str
 
 
 class FieldProblem(ValueError):
@@ -99,6 +104,10 @@ class State(ABC):
     @abstractmethod
     def max_bytes(self, field: str) -> int:
         """Rough upper bound of the stored bytes of this state under one key."""
+
+    #: For a state read by its own command: the command is the same for every lookup time
+    #: within one period of this many milliseconds (so the read path may reuse it).
+    read_period_ms: int = 1
 
     def read_command(self, key: str, field: str, t_ms: int) -> tuple[Any, ...] | None:
         """An extra store command whose answer is this state's raw value, or None.

@@ -16,15 +16,18 @@ from windvane.durations import format_duration
 from windvane.events import Event
 from windvane.kinds.base import LuaHandler, State, check_events, check_window
 
-_LUA_BUCKET_ADD = """
-local f, b, n, span = a[i], tonumber(a[i + 1]), tonumber(a[i + 2]), tonumber(a[i + 3])
-local v = S[f]
-local top, c = b, {}
-if v then
-  local sep = string.find(v, ':', 1, true)
-  top = tonumber(string.sub(v, 1, sep - 1))
-  for x in string.gmatch(string.sub(v, sep + 1), '[^,]+') do c[#c + 1] = tonumber(x) end
-end
+_DECODE = """
+if not s then return nil end
+local sep = string.find(s, ':', 1, true)
+local c = {}
+for x in string.gmatch(string.sub(s, sep + 1), '[^,]+') do c[#c + 1] = tonumber(x) end
+return {tonumber(string.sub(s, 1, sep - 1)), c}
+"""
+
+_APPLY = """
+local b, n, span = tonumber(a[i + 1]), tonumber(a[i + 2]), tonumber(a[i + 3])
+if not v then return {b, {n}}, true end
+local top, c = v[1], v[2]
 if b > top then
   local shift = b - top
   if shift >= span then
@@ -32,27 +35,33 @@ if b > top then
   else
     local d = {n}
     for j = 2, shift do d[j] = 0 end
-    for j = 1, #c do d[shift + j] = c[j] end
+    for j = 1, math.min(#c, span - shift) do d[shift + j] = c[j] end
     c = d
   end
-  top = b
+  return {b, c}, true
 elseif top - b < span then
   local j = top - b + 1
   for m = #c + 1, j do c[m] = 0 end
   c[j] = c[j] + n
-else
-  return
+  return v, true
 end
-local last = math.min(#c, span)
+return v, false
+"""
+
+_ENCODE = """
+local c = v[2]
+local last = #c
 while last > 0 and c[last] == 0 do last = last - 1 end
-put(f, top .. ':' .. table.concat(c, ',', 1, last))
+return string.format('%.0f', v[1]) .. ':' .. table.concat(c, ',', 1, last)
 """
 
 
 class BucketRing(State):
     """Counts of ``events`` per ``granularity_s`` bucket over ``span`` buckets."""
 
-    LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {BUCKET_OPCODE: LuaHandler(4, _LUA_BUCKET_ADD)}
+    LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {
+        BUCKET_OPCODE: LuaHandler(4, _DECODE, _APPLY, _ENCODE)
+    }
 
     def __init__(self, events: frozenset[str], granularity_s: int, span: int) -> None:
         self.events = events

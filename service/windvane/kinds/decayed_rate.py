@@ -33,26 +33,30 @@ from windvane.kinds.base import (
     check_events,
 )
 
-_LUA_DECAYED_ADD = """
-local f, ts, h, which = a[i], tonumber(a[i + 1]), tonumber(a[i + 2]), a[i + 3]
-local v = S[f]
-local ref, s, n = ts, 0, 0
-if v then
-  local p = string.find(v, ':', 1, true)
-  local q = string.find(v, ':', p + 1, true)
-  ref = tonumber(string.sub(v, 1, p - 1))
-  s = tonumber(string.sub(v, p + 1, q - 1))
-  n = tonumber(string.sub(v, q + 1))
-end
+_DECODE = """
+if not s then return nil end
+local p = string.find(s, ':', 1, true)
+local q = string.find(s, ':', p + 1, true)
+return {tonumber(string.sub(s, 1, p - 1)), tonumber(string.sub(s, p + 1, q - 1)),
+        tonumber(string.sub(s, q + 1))}
+"""
+
+_APPLY = """
+local ts, h, which = tonumber(a[i + 1]), tonumber(a[i + 2]), a[i + 3]
+if not v then v = {ts, 0, 0} end
 local w = 1
-if ts > ref then
-  local scale = 2 ^ (-(ts - ref) / h)
-  s, n, ref = s * scale, n * scale, ts
+if ts > v[1] then
+  local scale = 2 ^ (-(ts - v[1]) / h)
+  v[2], v[3], v[1] = v[2] * scale, v[3] * scale, ts
 else
-  w = 2 ^ (-(ref - ts) / h)
+  w = 2 ^ (-(v[1] - ts) / h)
 end
-if which == 's' then s = s + w else n = n + w end
-put(f, string.format('%.0f:%.17g:%.17g', ref, s, n))
+if which == 's' then v[2] = v[2] + w else v[3] = v[3] + w end
+return v, true
+"""
+
+_ENCODE = """
+return string.format('%.0f:%.17g:%.17g', v[1], v[2], v[3])
 """
 
 
@@ -72,7 +76,7 @@ class DecayedRateOptions(KeyedOptions):
 
 
 class DecayedPair(State):
-    LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {"d": LuaHandler(4, _LUA_DECAYED_ADD)}
+    LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {"d": LuaHandler(4, _DECODE, _APPLY, _ENCODE)}
 
     def __init__(
         self, successes: frozenset[str], trials: frozenset[str], half_life_s: int, keep_s: int
@@ -82,6 +86,7 @@ class DecayedPair(State):
         self.events = successes | trials
         self.half_life_s = half_life_s
         self.half_life_ms = half_life_s * 1000
+        self._half_life_arg = str(self.half_life_ms)
         self.retention_s = keep_s
 
     @property
@@ -93,7 +98,7 @@ class DecayedPair(State):
 
     def update(self, event: Event, key: str, field: str, writes: BatchWrites) -> None:
         which = "s" if event.kind in self.successes else "n"
-        writes.op(key, "d", field, str(event.ts_ms), str(self.half_life_ms), which)
+        writes.op(key, "d", field, str(event.ts_ms), self._half_life_arg, which)
 
     def sums(self, raw: bytes | None, t_ms: int) -> tuple[float, float]:
         """(successes, trials), each decayed to the lookup time ``t_ms``."""

@@ -52,6 +52,7 @@ class DistinctBuckets(State):
         self.of = of
         self.granularity_s = granularity_s
         self.granularity_ms = granularity_s * 1000
+        self.read_period_ms = self.granularity_ms
         self.span = span
         self.retention_s = granularity_s * span
         self.margin_ms = margin_s * 1000
@@ -68,6 +69,8 @@ class DistinctBuckets(State):
             return
         bucket = event.ts_ms // self.granularity_ms
         expire_at_ms = (bucket + self.span) * self.granularity_ms + self.margin_ms
+        if expire_at_ms <= writes.now_ms:
+            return
         writes.add_member(KeyLayout.bucket_key(key, field, bucket), str(value), expire_at_ms)
 
     def read_command(self, key: str, field: str, t_ms: int) -> tuple[Any, ...]:

@@ -24,9 +24,19 @@ from windvane.kinds.base import (
     check_events,
 )
 
-_LUA_LATEST = """
-local v = S[a[i]]
-if (not v) or tonumber(v) < tonumber(a[i + 1]) then put(a[i], a[i + 1]) end
+_DECODE = """
+if not s then return nil end
+return tonumber(s)
+"""
+
+_APPLY = """
+local ts = tonumber(a[i + 1])
+if (not v) or v < ts then return ts, true end
+return v, false
+"""
+
+_ENCODE = """
+return string.format('%.0f', v)
 """
 
 
@@ -36,7 +46,7 @@ class RecencyOptions(KeyedOptions):
 
 
 class LatestTime(State):
-    LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {"m": LuaHandler(2, _LUA_LATEST)}
+    LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {"m": LuaHandler(2, _DECODE, _APPLY, _ENCODE)}
 
     def __init__(self, events: frozenset[str], keep_s: int) -> None:
         self.events = events

@@ -27,28 +27,31 @@ from windvane.kinds.base import (
     State,
 )
 
-_LUA_SESSION = """
-local f, ts, gap = a[i], tonumber(a[i + 1]), tonumber(a[i + 2])
-local v = S[f]
-local start, last, depth
-if v then
-  local p = string.find(v, ':', 1, true)
-  local q = string.find(v, ':', p + 1, true)
-  start = tonumber(string.sub(v, 1, p - 1))
-  last = tonumber(string.sub(v, p + 1, q - 1))
-  depth = tonumber(string.sub(v, q + 1))
+_DECODE = """
+if not s then return nil end
+local p = string.find(s, ':', 1, true)
+local q = string.find(s, ':', p + 1, true)
+return {tonumber(string.sub(s, 1, p - 1)), tonumber(string.sub(s, p + 1, q - 1)),
+        tonumber(string.sub(s, q + 1))}
+"""
+
+_APPLY = """
+local ts, gap = tonumber(a[i + 1]), tonumber(a[i + 2])
+if (not v) or ts - v[2] > gap then
+  return {ts, ts, 1}, true
+elseif ts >= v[1] then
+  v[3] = v[3] + 1
+  if ts > v[2] then v[2] = ts end
+  return v, true
+elseif v[1] - ts <= gap then
+  v[1], v[3] = ts, v[3] + 1
+  return v, true
 end
-if (not v) or ts - last > gap then
-  start, last, depth = ts, ts, 1
-elseif ts >= start then
-  depth = depth + 1
-  if ts > last then last = ts end
-elseif start - ts <= gap then
-  start, depth = ts, depth + 1
-else
-  return
-end
-put(f, string.format('%.0f:%.0f:%.0f', start, last, depth))
+return v, false
+"""
+
+_ENCODE = """
+return string.format('%.0f:%.0f:%.0f', v[1], v[2], v[3])
 """
 
 
@@ -58,12 +61,13 @@ class SessionOptions(KeyedOptions):
 
 
 class SessionState(State):
-    LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {"s": LuaHandler(3, _LUA_SESSION)}
+    LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {"s": LuaHandler(3, _DECODE, _APPLY, _ENCODE)}
 
     def __init__(self, gap_s: int) -> None:
         self.events = frozenset({"request"})
         self.gap_s = gap_s
         self.gap_ms = gap_s * 1000
+        self._gap_arg = str(self.gap_ms)
         self.retention_s = gap_s
 
     @property
@@ -71,7 +75,7 @@ class SessionState(State):
         return f"session({self.gap_s})"
 
     def update(self, event: Event, key: str, field: str, writes: BatchWrites) -> None:
-        writes.op(key, "s", field, str(event.ts_ms), str(self.gap_ms))
+        writes.op(key, "s", field, str(event.ts_ms), self._gap_arg)
 
     def current(self, raw: bytes | None, t_ms: int) -> tuple[int, int] | None:
         """(start_ms, depth) of the session the lookup at ``t_ms`` continues, or None."""

@@ -36,7 +36,9 @@ def open_store(url: str, timeout_s: float = 5.0) -> StateStore:
     if scheme == "memory":
         name = url[len("memory://") :].strip("/") or "default"
         client = fakeredis.FakeRedis(server=memory_server(name))
-        return RedisStateStore(client, url, keys_per_call=MEMORY_KEYS_PER_CALL)
+        return RedisStateStore(
+            client, url, keys_per_call=MEMORY_KEYS_PER_CALL, args_per_call=1_000_000
+        )
     if scheme in ("redis", "rediss", "unix"):
         try:
             client = redis.Redis.from_url(

@@ -12,6 +12,7 @@ from __future__ import annotations
 from collections.abc import Iterator, Sequence
 from typing import Any
 
+import hiredis
 import redis
 
 from windvane.batch_writes import BatchWrites
@@ -22,15 +23,18 @@ from windvane.update_script import UPDATE_SCRIPT, UPDATE_SCRIPT_SHA
 
 
 class RedisStateStore(StateStore):
-    """``keys_per_call`` bounds how long one script call holds the server: a real server
-    serves lookups between calls, so it takes few keys per call; the embedded store pays
-    a large fixed cost per call, so it takes many.
+    """``keys_per_call`` and ``args_per_call`` bound one script call: a real server serves
+    lookups between calls, so a call stays small (a few hundred microseconds of Lua at
+    most); the embedded store pays a large fixed cost per call, so it takes many keys.
     """
 
-    def __init__(self, client: redis.Redis, url: str, keys_per_call: int = 1) -> None:
+    def __init__(
+        self, client: redis.Redis, url: str, keys_per_call: int = 16, args_per_call: int = 2000
+    ) -> None:
         self.client = client
         self.url = url
         self.keys_per_call = keys_per_call
+        self.args_per_call = args_per_call
         self._script_loaded = False
 
     def _load_script(self) -> None:
@@ -52,23 +56,50 @@ class RedisStateStore(StateStore):
             self._send(writes)
 
     def _send(self, writes: BatchWrites) -> None:
-        pipe = self.client.pipeline(transaction=False)
+        """Pack the batch with hiredis and send it as one write; read every reply.
+
+        redis-py's pipeline would do the same with a Python loop over every argument,
+        which costs more than the rest of the update path; the replies are read one by
+        one so that an error reply never leaves the connection out of step.
+        """
+        pack = hiredis.pack_command
+        sha = UPDATE_SCRIPT_SHA
+        chunks: list[bytes] = []
         keys: list[str] = []
         argv: list[str] = []
         for key, args in writes.hash_updates():
             keys.append(key)
             argv += args
-            if len(keys) >= self.keys_per_call:
-                pipe.evalsha(UPDATE_SCRIPT_SHA, len(keys), *keys, *argv)
+            if len(keys) >= self.keys_per_call or len(argv) >= self.args_per_call:
+                chunks.append(pack(("EVALSHA", sha, len(keys), *keys, *argv)))
                 keys, argv = [], []
         if keys:
-            pipe.evalsha(UPDATE_SCRIPT_SHA, len(keys), *keys, *argv)
+            chunks.append(pack(("EVALSHA", sha, len(keys), *keys, *argv)))
         for key, members, expire_at_ms in writes.member_updates():
-            pipe.pfadd(key, *members)
-            pipe.pexpireat(key, expire_at_ms, nx=True)
-            pipe.pexpireat(key, expire_at_ms, gt=True)
+            chunks.append(pack(("PFADD", key, *members)))
+            chunks.append(pack(("PEXPIREAT", key, expire_at_ms, "NX")))
+            chunks.append(pack(("PEXPIREAT", key, expire_at_ms, "GT")))
         with store_errors(self.url):
-            pipe.execute()
+            self._round_trip(chunks)
+
+    def _round_trip(self, chunks: list[bytes]) -> None:
+        pool = self.client.connection_pool
+        connection = pool.get_connection()
+        first_error: redis.exceptions.ResponseError | None = None
+        try:
+            connection.send_packed_command([b"".join(chunks)])
+            for _ in chunks:
+                try:
+                    connection.read_response()
+                except redis.exceptions.ResponseError as exc:
+                    first_error = first_error or exc
+        except BaseException:
+            connection.disconnect()
+            raise
+        finally:
+            pool.release(connection)
+        if first_error is not None:
+            raise first_error
 
     def read(self, commands: Sequence[tuple[Any, ...]]) -> list[Any]:
         pipe = self.client.pipeline(transaction=False)
