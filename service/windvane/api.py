@@ -29,16 +29,15 @@ from windvane.api_schema import (
 )
 from windvane.errors import (
     BadRequest,
-    InputError,
     NotAuthorized,
     StoreError,
     UnknownModel,
     WindvaneError,
 )
 from windvane.event_stream import append_async, decode_body, prepare
+from windvane.http_errors import JSON, error_answer
 from windvane.ingest_worker import read_statuses
-from windvane.lookup_request import parse_lookup_request
-from windvane.lookup_service import check_deadline_ms
+from windvane.lookup_endpoint import answer_lookup, header_deadline
 from windvane.model_registry import Arm
 from windvane.openrtb import lookups_from_bid_request
 from windvane.rtb_objects import identifier
@@ -80,18 +79,6 @@ async def _decode(request: Request) -> Any:
         raise BadRequest("", f"the body is not valid JSON ({exc})") from None
 
 
-def _deadline(request: Request, body: dict[str, Any] | None) -> float | None:
-    if body is not None and body.get("deadline_ms") is not None:
-        return check_deadline_ms(body["deadline_ms"])
-    header = request.headers.get(DEADLINE_HEADER)
-    if header is None:
-        return None
-    try:
-        return check_deadline_ms(float(header), "X-Deadline-Ms")
-    except ValueError:
-        raise BadRequest("X-Deadline-Ms", "must be a number of milliseconds") from None
-
-
 def _model(raw: object) -> str | None:
     if raw is None:
         return None
@@ -109,16 +96,14 @@ def _model(raw: object) -> str | None:
     tags=["lookup"],
 )
 async def lookup(request: Request) -> Response:
+    # Served by FastLookup in front of the framework; this route documents it and serves
+    # the same answer when the application is mounted without that wrapper.
     started = time.perf_counter()
-    body = await _decode(request)
-    if not isinstance(body, dict):
-        raise BadRequest("", "a lookup request must be a JSON object")
-    deadline_ms = _deadline(request, body)
-    parsed = parse_lookup_request(body)
-    answer = await _state(request).lookups.lookup(
-        parsed, _model(body.get("model")), deadline_ms, started
+    header = request.headers.get(DEADLINE_HEADER)
+    body = await answer_lookup(
+        _state(request), await request.body(), header.encode() if header else None, started
     )
-    return _json(answer)
+    return Response(body, media_type=JSON)
 
 
 @router.post(
@@ -142,7 +127,7 @@ async def lookup_openrtb(
 ) -> Response:
     started = time.perf_counter()
     body = await _decode(request)
-    deadline_ms = _deadline(request, None)
+    deadline_ms = header_deadline(request.headers.get(DEADLINE_HEADER))
     candidates = tuple(
         identifier(c, "campaigns", BadRequest) or "" for c in campaigns.split(",") if c
     )
@@ -329,49 +314,25 @@ async def health(request: Request) -> Response:
 
 
 def install_error_handlers(app: FastAPI) -> None:
-    """One place maps windvane's errors to HTTP answers."""
+    """Route the framework's exceptions through ``http_errors``, the one mapping."""
 
-    def error(status: int, field: str, reason: str, **headers: str) -> Response:
-        body = {"error": {"field": field, "reason": reason}}
-        return Response(
-            orjson.dumps(body), status_code=status, media_type="application/json", headers=headers
-        )
+    async def mapped(request: Request, exc: Exception) -> Response:
+        answer = error_answer(exc)
+        if answer is None:
+            raise exc
+        status, body, headers = answer
+        return Response(body, status_code=status, media_type=JSON, headers=headers)
 
-    @app.exception_handler(InputError)
-    async def _input(request: Request, exc: InputError) -> Response:
-        return error(422, exc.field, exc.reason)
-
-    @app.exception_handler(UnknownModel)
-    async def _unknown(request: Request, exc: UnknownModel) -> Response:
-        return error(404, "model", str(exc))
-
-    @app.exception_handler(NotAuthorized)
-    async def _auth(request: Request, exc: NotAuthorized) -> Response:
-        return error(401, "authorization", str(exc), **{"WWW-Authenticate": "Bearer"})
-
-    @app.exception_handler(StoreError)
-    async def _store(request: Request, exc: StoreError) -> Response:
-        return error(503, "", str(exc))
-
-    @app.exception_handler(redis.exceptions.ConnectionError)
-    async def _down(request: Request, exc: Exception) -> Response:
-        return error(503, "", f"the store did not answer: {exc}")
-
-    @app.exception_handler(redis.exceptions.TimeoutError)
-    async def _slow(request: Request, exc: Exception) -> Response:
-        return error(503, "", f"the store did not answer in time: {exc}")
-
-    @app.exception_handler(WindvaneError)
-    async def _other(request: Request, exc: WindvaneError) -> Response:
-        return error(400, "", str(exc))
+    for kind in (WindvaneError, redis.exceptions.ConnectionError, redis.exceptions.TimeoutError):
+        app.add_exception_handler(kind, mapped)
 
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError) -> Response:
         first = exc.errors()[0]
         field = ".".join(str(p) for p in first.get("loc", ()) if p != "body")
-        return error(422, field, str(first.get("msg", "invalid")))
+        return await mapped(request, BadRequest(field, str(first.get("msg", "invalid"))))
 
-    del _input, _unknown, _auth, _store, _down, _slow, _other, _validation
+    del _validation
 
 
 __all__ = ["install_error_handlers", "router"]

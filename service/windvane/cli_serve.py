@@ -22,7 +22,7 @@ from windvane.model_registry import SnapshotStore
 from windvane.plan import load_plan
 from windvane.rejects import RejectsFile
 from windvane.replay import replay
-from windvane.service_app import create_app
+from windvane.service_app import create_asgi
 from windvane.service_config import ENVIRONMENT_KEY, ServiceConfig, load_config
 from windvane.service_state import feature_shapes
 from windvane.store import open_store
@@ -93,7 +93,7 @@ def run_service(config: ServiceConfig) -> None:
         "lifespan": "on",
     }
     if config.workers == 1:
-        uvicorn.run(create_app(config), **options)
+        uvicorn.run(create_asgi(config), **options)
         return
     os.environ[ENVIRONMENT_KEY] = config.to_environment()
     uvicorn.run(

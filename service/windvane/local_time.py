@@ -54,6 +54,7 @@ _finder: TimezoneFinder | None = None
 # FastAPI runs plain endpoints in a thread pool; only cache misses take this lock.
 _finder_lock = threading.Lock()
 _zones: dict[str, ZoneInfo] = {}
+_last: tuple[tuple[object, ...], tuple[int, int]] = ((), (0, 0))
 
 
 def local_hour_dow(
@@ -70,13 +71,22 @@ def local_hour_dow(
     before the hour up into the next one). Fixed offsets are plain arithmetic, since
     building a datetime costs more than the rest of the lookup.
     """
+    global _last
+    asked = (ts_s, utcoffset_min, lat, lon, country)
+    last = _last
+    if last[0] == asked:  # hour and day of week of one lookup ask the same question
+        return last[1]
     if utcoffset_min is not None and -_MAX_OFFSET_MIN < utcoffset_min < _MAX_OFFSET_MIN:
-        return _fixed_hour_dow(math.floor(ts_s) + utcoffset_min * 60)
-    zone, _ = _named_zone(lat, lon, country)
-    if zone is None:
-        return _fixed_hour_dow(math.floor(ts_s))
-    local = datetime.fromtimestamp(math.floor(ts_s), zone)
-    return local.hour, local.weekday()
+        answer = _fixed_hour_dow(math.floor(ts_s) + utcoffset_min * 60)
+    else:
+        zone, _ = _named_zone(lat, lon, country)
+        if zone is None:
+            answer = _fixed_hour_dow(math.floor(ts_s))
+        else:
+            local = datetime.fromtimestamp(math.floor(ts_s), zone)
+            answer = local.hour, local.weekday()
+    _last = (asked, answer)
+    return answer
 
 
 def resolve_zone(

@@ -11,6 +11,7 @@ from __future__ import annotations
 from typing import Any
 
 from windvane.keys import KeyLayout
+from windvane.kinds.base import State
 from windvane.lookup_request import LookupRequest
 from windvane.plan import Plan, Scope
 
@@ -38,42 +39,67 @@ class PreparedLookup:
         self.reads: list[tuple[Scope, str | None, int, dict[str, int]]] = []
 
 
+class _ScopeRead:
+    """What a lookup reads for one kind of key, worked out once from the plan."""
+
+    __slots__ = ("fields", "has_hash", "needs_app", "per_campaign", "per_user", "scope", "side")
+
+    def __init__(self, scope: Scope) -> None:
+        self.scope = scope
+        self.fields = scope.fields
+        self.per_user = scope.per_user
+        self.per_campaign = scope.per_campaign
+        self.needs_app = "app" in scope.fields
+        self.has_hash = any(s.state.in_hash for s in scope.states)
+        self.side = [s for s in scope.states if not s.state.in_hash]
+
+
 class LookupReader:
     def __init__(self, plan: Plan, layout: KeyLayout) -> None:
         self.plan = plan
         self.layout = layout
-        self._request_features = plan.request_features
-        self._hash_scopes = {
-            id(scope): any(s.state.in_hash for s in scope.states) for scope in plan.scopes
-        }
+        self._scopes = [_ScopeRead(scope) for scope in plan.scopes]
+        # Side-key commands (a distinct count's bucket keys) change once per bucket.
+        self._side_commands: dict[tuple[str, str, int], tuple[Any, ...]] = {}
 
     def prepare(self, request: LookupRequest) -> PreparedLookup:
         lookup = PreparedLookup(request)
+        commands, cacheable, reads = lookup.commands, lookup.cacheable, lookup.reads
         no_user = request.user is None or request.restricted
-        for scope in self.plan.scopes:
-            if (scope.per_user and no_user) or ("app" in scope.fields and request.app is None):
+        state_key = self.layout.state_key
+        for read in self._scopes:
+            if (read.per_user and no_user) or (read.needs_app and request.app is None):
                 continue
-            for campaign in request.campaigns if scope.per_campaign else (None,):
+            shared = not read.per_user
+            for campaign in request.campaigns if read.per_campaign else (None,):
                 values = tuple(
                     request.user if name == "user" else request.app if name == "app" else campaign
-                    for name in scope.fields
+                    for name in read.fields
                 )
-                key = self.layout.state_key(scope.fields, values)  # type: ignore[arg-type]
+                key = state_key(read.fields, values)  # type: ignore[arg-type]
                 index = -1
-                shared = not scope.per_user
-                if self._hash_scopes[id(scope)]:
-                    index = len(lookup.commands)
-                    lookup.commands.append(("HGETALL", key))
-                    lookup.cacheable.append(shared)
+                if read.has_hash:
+                    index = len(commands)
+                    commands.append(("HGETALL", key))
+                    cacheable.append(shared)
                 side: dict[str, int] = {}
-                for stored in scope.states:
-                    command = stored.state.read_command(key, stored.field, lookup.t_ms)
-                    if command is not None:
-                        side[stored.field] = len(lookup.commands)
-                        lookup.commands.append(command)
-                        lookup.cacheable.append(shared)
-                lookup.reads.append((scope, campaign, index, side))
+                for stored in read.side:
+                    side[stored.field] = len(commands)
+                    commands.append(
+                        self._side_command(stored.state, key, stored.field, lookup.t_ms)
+                    )
+                    cacheable.append(shared)
+                reads.append((read.scope, campaign, index, side))
         return lookup
+
+    def _side_command(self, state: State, key: str, field: str, t_ms: int) -> tuple[Any, ...]:
+        slot = (key, field, t_ms // state.read_period_ms)
+        command = self._side_commands.get(slot)
+        if command is None:
+            if len(self._side_commands) > 50_000:
+                self._side_commands.clear()
+            command = self._side_commands[slot] = state.read_command(key, field, t_ms)
+        return command
 
     def answer(self, lookup: PreparedLookup, replies: list[Any] | None) -> dict[str, Any]:
         """The feature object from the replies, in command order.

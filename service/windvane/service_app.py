@@ -12,6 +12,7 @@ from pydantic.json_schema import models_json_schema
 
 from windvane.api import install_error_handlers, router
 from windvane.api_schema import LookupBody
+from windvane.lookup_endpoint import FastLookup
 from windvane.service_config import ServiceConfig
 from windvane.service_state import ServiceState
 from windvane.snapshot import Snapshot
@@ -66,6 +67,11 @@ def create_app(config: ServiceConfig) -> FastAPI:
     return app
 
 
-def app_from_environment() -> FastAPI:
+def create_asgi(config: ServiceConfig) -> FastLookup:
+    """What uvicorn serves: the application behind the lookup fast path."""
+    return FastLookup(create_app(config))
+
+
+def app_from_environment() -> FastLookup:
     """The factory uvicorn calls in each worker process (``--workers N``)."""
-    return create_app(ServiceConfig.from_environment())
+    return create_asgi(ServiceConfig.from_environment())
