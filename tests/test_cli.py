@@ -45,6 +45,9 @@ def requests() -> bytes:
 
 
 def test_replay_then_features_on_a_real_server(redis_server, tmp_path: Path) -> None:
+    from windvane.store import open_store
+
+    open_store(redis_server.url).flush()
     log = write_log(tmp_path / "log.jsonl")
     rejects = tmp_path / "rejects.jsonl"
     store = redis_server.url
