@@ -80,6 +80,11 @@ def test_unknown_fields_are_ignored_and_flags_read() -> None:
         ({"kind": "request", "ts": True, "id": "a"}, "ts"),
         ({"kind": "request", "ts": 1796000000, "id": 7}, "id"),
         ({"kind": "request", "ts": 1796000000, "id": "a", "app": ""}, "app"),
+        # Braces would break the cluster hash tag; spaces and control characters the key.
+        ({"kind": "request", "ts": 1796000000, "id": "a", "user": "u{1}"}, "user"),
+        ({"kind": "win", "ts": 1796000000, "id": "a", "campaign": "spring sale"}, "campaign"),
+        ({"kind": "request", "ts": 1796000000, "id": "a\tb"}, "id"),
+        ({"kind": "click", "ts": 1796000000, "id": "a", "creative": "c\x7f"}, "creative"),
         ({"kind": "request", "ts": 1796000000, "id": "a", "device": []}, "device"),
     ],
 )
@@ -100,3 +105,9 @@ def test_lookup_request_defaults_and_errors() -> None:
     with pytest.raises(BadRequest) as err:
         parse_lookup_request({"campaigns": ["a", 3]})
     assert err.value.field == "campaigns[1]"
+    with pytest.raises(BadRequest) as err:
+        parse_lookup_request({"campaigns": ["a", "b}"]})
+    assert err.value.field == "campaigns[1]"
+    with pytest.raises(BadRequest) as err:
+        parse_lookup_request({"user": "u 1"})
+    assert err.value.field == "user"

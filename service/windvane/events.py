@@ -17,7 +17,16 @@ from msgspec import Meta, Struct
 
 from windvane.errors import BadEvent
 from windvane.event_time import EARLIEST_S, LATEST_S, parse_time_s
-from windvane.rtb_objects import Device, Flag, Geo, Identifier, Slot, validation_problem
+from windvane.rtb_objects import (
+    Device,
+    Flag,
+    Geo,
+    Identifier,
+    Slot,
+    check_ids,
+    unsafe_id,
+    validation_problem,
+)
 
 EVENT_KINDS = ("request", "bid", "win", "impression", "click")
 
@@ -28,6 +37,9 @@ EVENT_FIELDS = (
     "device.lmt", "geo.country", "geo.lat", "geo.lon", "geo.utcoffset", "slot.w", "slot.h",
     "coppa",
 )  # fmt: skip
+
+
+_ID_FIELDS = ("id", "user", "app", "campaign", "creative")
 
 
 class Event(Struct):
@@ -47,6 +59,9 @@ class Event(Struct):
     coppa: Flag | None = False
     # Not read from the line: set from ts_s (the name keeps producers' fields out of it).
     ts_ms: int = msgspec.field(default=0, name="~windvane.ts_ms")
+    # True when the user asked not to be tracked (lmt) or is a child (COPPA); set once,
+    # since every route of the event asks.
+    restricted: bool = msgspec.field(default=False, name="~windvane.restricted")
 
     def __post_init__(self) -> None:
         ts = self.ts_s
@@ -55,19 +70,20 @@ class Event(Struct):
                 ts = parse_time_s(ts)
             except ValueError as exc:
                 raise BadEvent("ts", str(exc)) from None
-        self.ts_s = float(ts)
+        if type(ts) is not float:
+            ts = float(ts)
+        self.ts_s = ts
         self.ts_ms = round(ts * 1000)
         if type(self.coppa) is not bool:
             self.coppa = bool(self.coppa)
+        device = self.device
+        self.restricted = self.coppa or (device is not None and bool(device.lmt))
+        if unsafe_id(f"{self.id}{self.user}{self.app}{self.campaign}{self.creative}"):
+            check_ids(self, _ID_FIELDS, BadEvent)
 
     @property
     def lmt(self) -> bool:
         return self.device is not None and bool(self.device.lmt)
-
-    @property
-    def restricted(self) -> bool:
-        """True when the user asked not to be tracked (lmt) or is a child (COPPA)."""
-        return bool(self.coppa) or (self.device is not None and bool(self.device.lmt))
 
     def field(self, path: str) -> object:
         """The value at a dotted path such as ``user`` or ``geo.country``."""

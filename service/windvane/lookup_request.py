@@ -15,7 +15,17 @@ from msgspec import Meta, Struct
 
 from windvane.errors import BadRequest
 from windvane.event_time import parse_time_s
-from windvane.rtb_objects import Device, Flag, Geo, Identifier, Slot, validation_problem
+from windvane.rtb_objects import (
+    ID_REASON,
+    Device,
+    Flag,
+    Geo,
+    Identifier,
+    Slot,
+    check_ids,
+    unsafe_id,
+    validation_problem,
+)
 
 MAX_CAMPAIGNS = 500
 
@@ -40,6 +50,11 @@ class LookupRequest(Struct):
                 raise BadRequest("ts", str(exc)) from None
         if type(self.coppa) is not bool:
             self.coppa = bool(self.coppa)
+        if unsafe_id(f"{self.user}{self.app}{''.join(self.campaigns)}"):
+            check_ids(self, ("user", "app"), BadRequest)
+            for i, campaign in enumerate(self.campaigns):
+                if unsafe_id(campaign):
+                    raise BadRequest(f"campaigns[{i}]", ID_REASON)
         if len(set(self.campaigns)) != len(self.campaigns):
             self.campaigns = tuple(dict.fromkeys(self.campaigns))
 
