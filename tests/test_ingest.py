@@ -357,11 +357,11 @@ class FlakyAcknowledgements(IngestWorker):
         self.rng = rng
         self.failures = 0
 
-    def acknowledge(self, shard, ids, dead) -> None:  # type: ignore[no-untyped-def]
+    def acknowledge(self, done) -> None:  # type: ignore[no-untyped-def]
         if self.rng.random() < 0.25:
             self.failures += 1
             raise redis.exceptions.ConnectionError("acknowledgement lost (injected)")
-        super().acknowledge(shard, ids, dead)
+        super().acknowledge(done)
 
 
 def test_writes_repeated_after_lost_acknowledgements_count_once(
@@ -374,7 +374,7 @@ def test_writes_repeated_after_lost_acknowledgements_count_once(
     sent = send(client, demo_lines(30_000, seed=31))
     engine = Engine(engine_for(FEATUREDEFS, url).plan, open_store(url), "main")
     settings = IngestSettings(
-        batch=500, block_ms=10, lease_ms=2000, claim_idle_ms=200, status_every_s=3600, name="flaky"
+        batch=200, block_ms=10, lease_ms=2000, claim_idle_ms=200, status_every_s=3600, name="flaky"
     )
     worker = FlakyAcknowledgements(
         engine, client, settings, out=io.StringIO(), rng=random.Random(2)

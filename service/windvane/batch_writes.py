@@ -25,12 +25,15 @@ class _Segment:
     def __init__(self, entry: str) -> None:
         self.entry = entry
         self.ops: list[str] = []
-        self.buckets: dict[tuple[str, int, int], int] = {}
+        # Made on the first count: a stream batch has a segment per entry and key.
+        self.buckets: dict[tuple[str, int, int], int] | None = None
 
     def args(self) -> list[str]:
-        ops = list(self.ops)
-        for (field, bucket, span), n in self.buckets.items():
-            ops += (BUCKET_OPCODE, field, str(bucket), str(n), str(span))
+        ops = self.ops
+        if self.buckets:
+            ops = list(ops)
+            for (field, bucket, span), n in self.buckets.items():
+                ops += (BUCKET_OPCODE, field, str(bucket), str(n), str(span))
         return [self.entry, str(len(ops)), *ops]
 
 
@@ -75,7 +78,10 @@ class BatchWrites:
 
     def count(self, key: str, field: str, bucket: int, span: int, n: int = 1) -> None:
         """Add ``n`` to one time bucket of a bucketed count (commutative, so pre-added)."""
-        counts = self._segment(key).buckets
+        segment = self._segment(key)
+        counts = segment.buckets
+        if counts is None:
+            counts = segment.buckets = {}
         slot = (field, bucket, span)
         counts[slot] = counts.get(slot, 0) + n
 

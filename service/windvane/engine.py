@@ -6,7 +6,7 @@ workers each hold an ``Engine`` and call the same two methods.
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -38,12 +38,12 @@ class Engine:
             generation = Generations(store.client, store_url).active()  # type: ignore[attr-defined]
         return cls(plan, store, generation)
 
-    def record(self, events: list[Event]) -> None:
+    def record(self, count: int, first_ts: float, last_ts: float) -> None:
         """Add applied events to the generation's counts and time range (``generations``)."""
         if self._generations is None:
             self._generations = Generations(self.store.client, self.store.url)  # type: ignore[attr-defined]
             self._generations.register(self.layout.generation, "replay")
-        self._generations.record(self.layout.generation, events)
+        self._generations.record_range(self.layout.generation, count, first_ts, last_ts)
 
     def apply(self, events: Iterable[Event]) -> int:
         """Apply a batch of validated events in one round trip; returns how many."""
@@ -56,6 +56,12 @@ class Engine:
         writes = self.router.batch_entries(shard, entries)
         self.store.apply(writes)
         return writes.events
+
+    def apply_shards(self, parts: Sequence[tuple[int, Iterable[tuple[str, Event]]]]) -> int:
+        """``apply_entries`` for several shards at once, still in one round trip."""
+        batches = [self.router.batch_entries(shard, entries) for shard, entries in parts]
+        self.store.apply(*batches)
+        return sum(writes.events for writes in batches)
 
     def lookup(self, request: LookupRequest | dict[str, Any]) -> dict[str, Any]:
         """Features for one lookup request (a parsed request or its JSON object)."""

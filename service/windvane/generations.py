@@ -60,14 +60,15 @@ class Generations:
 
     def record(self, name: str, events: Iterable[Event]) -> None:
         """Count applied events and widen the generation's event-time range."""
-        count, first, last = 0, None, None
-        for event in events:
-            count += 1
-            first = event.ts_s if first is None or event.ts_s < first else first
-            last = event.ts_s if last is None or event.ts_s > last else last
+        times = [event.ts_s for event in events]
+        if times:
+            self.record_range(name, len(times), min(times), max(times))
+
+    def record_range(self, name: str, count: int, first_ts: float, last_ts: float) -> None:
+        """``record`` for a caller that already knows the count and the time range."""
         if count:
             with store_errors(self.url):
-                self._record(keys=[generation_stats_key(name)], args=[count, first, last])
+                self._record(keys=[generation_stats_key(name)], args=[count, first_ts, last_ts])
 
     def list(self) -> list[dict[str, Any]]:
         active = self.active()

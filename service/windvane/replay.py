@@ -114,6 +114,9 @@ def _replay_files(
             progress(stats, path)
 
 
+_Range = tuple[int, float, float]  # events applied, first and last event time
+
+
 class _Writer:
     """Sends batches from a second thread, in order, while the next batch is parsed.
 
@@ -124,7 +127,7 @@ class _Writer:
 
     def __init__(self, engine: Engine) -> None:
         self.engine = engine
-        self.queue: queue.Queue[tuple[BatchWrites, list[Event]] | None] = queue.Queue(maxsize=1)
+        self.queue: queue.Queue[tuple[BatchWrites, _Range] | None] = queue.Queue(maxsize=1)
         self.error: BaseException | None = None
         self.thread = threading.Thread(target=self._run, name="windvane-replay-writer", daemon=True)
 
@@ -132,9 +135,9 @@ class _Writer:
         self.thread.start()
         return self
 
-    def submit(self, writes: BatchWrites, events: list[Event]) -> None:
+    def submit(self, writes: BatchWrites, applied: _Range) -> None:
         self._check()
-        self.queue.put((writes, events))
+        self.queue.put((writes, applied))
 
     def _run(self) -> None:
         while True:
@@ -143,10 +146,10 @@ class _Writer:
                 return
             if self.error is not None:
                 continue
-            writes, events = item
+            writes, applied = item
             try:
                 self.engine.store.apply(writes)
-                self.engine.record(events)
+                self.engine.record(*applied)
             except BaseException as exc:  # handed to the replaying thread
                 self.error = exc
 
@@ -162,13 +165,13 @@ class _Writer:
 
 
 def _flush(engine: Engine, batch: list[Event], stats: ReplayStats, writer: _Writer) -> None:
-    events = list(batch)
-    writer.submit(engine.router.batch(events), events)
+    times = [event.ts_s for event in batch]
+    first, last = min(times), max(times)
+    writer.submit(engine.router.batch(batch), (len(batch), first, last))
     stats.applied += len(batch)
-    for event in batch:
-        stats.by_kind[event.kind] += 1
-        if stats.first_ts_s is None or event.ts_s < stats.first_ts_s:
-            stats.first_ts_s = event.ts_s
-        if stats.last_ts_s is None or event.ts_s > stats.last_ts_s:
-            stats.last_ts_s = event.ts_s
+    stats.by_kind.update([event.kind for event in batch])
+    if stats.first_ts_s is None or first < stats.first_ts_s:
+        stats.first_ts_s = first
+    if stats.last_ts_s is None or last > stats.last_ts_s:
+        stats.last_ts_s = last
     batch.clear()

@@ -78,7 +78,7 @@ class UpdateRouter:
         routes = self._routes.get(event.kind)
         if routes is None:
             return
-        restricted = event.coppa or event.lmt
+        restricted = event.restricted
         for key_of, per_user, ttl_ms, updates in routes:
             if restricted and per_user:
                 continue

@@ -12,6 +12,8 @@ set are left out of a distinct count of users.
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from operator import attrgetter
 from typing import Any
 
 from windvane.batch_writes import BatchWrites
@@ -35,6 +37,10 @@ from windvane.kinds.base import (
 _DENSE_HLL_BYTES = 12_304
 
 
+def _by_path(path: str) -> Callable[[Event], object]:
+    return lambda event: event.field(path)
+
+
 class DistinctCountOptions(KeyedOptions):
     events: tuple[EventKind, ...]
     of: str
@@ -50,6 +56,8 @@ class DistinctBuckets(State):
     ) -> None:
         self.events = events
         self.of = of
+        # A top-level field is read with attrgetter (every event asks); a dotted one by path.
+        self._value_of = attrgetter(of) if "." not in of and of != "ts" else _by_path(of)
         self.granularity_s = granularity_s
         self.granularity_ms = granularity_s * 1000
         self.read_period_ms = self.granularity_ms
@@ -64,7 +72,7 @@ class DistinctBuckets(State):
         return f"distinct({self.of};{events};{self.granularity_s};{self.span})"
 
     def update(self, event: Event, key: str, field: str, writes: BatchWrites) -> None:
-        value = event.field(self.of)
+        value = self._value_of(event)
         if value is None:
             return
         bucket = event.ts_ms // self.granularity_ms

@@ -17,8 +17,8 @@ class StateStore(ABC):
     url: str
 
     @abstractmethod
-    def apply(self, writes: BatchWrites) -> None:
-        """Send every write of a batch in one pipelined round trip."""
+    def apply(self, *batches: BatchWrites) -> None:
+        """Send every write of the batches in one pipelined round trip."""
 
     @abstractmethod
     def read(self, commands: Sequence[tuple[Any, ...]]) -> list[Any]:

@@ -44,18 +44,19 @@ class RedisStateStore(StateStore):
             raise StoreError(f"{self.url}: the server hashed the update script differently")
         self._script_loaded = True
 
-    def apply(self, writes: BatchWrites) -> None:
-        if not writes:
+    def apply(self, *batches: BatchWrites) -> None:
+        batches = tuple(writes for writes in batches if writes)
+        if not batches:
             return
         if not self._script_loaded:
             self._load_script()
         try:
-            self._send(writes)
+            self._send(batches)
         except redis.exceptions.NoScriptError:
             self._load_script()
-            self._send(writes)
+            self._send(batches)
 
-    def _send(self, writes: BatchWrites) -> None:
+    def _send(self, batches: Sequence[BatchWrites]) -> None:
         """Pack the batch with hiredis and send it as one write; read every reply.
 
         redis-py's pipeline would do the same with a Python loop over every argument,
@@ -67,18 +68,20 @@ class RedisStateStore(StateStore):
         chunks: list[bytes] = []
         keys: list[str] = []
         argv: list[str] = []
-        for key, args in writes.hash_updates():
-            keys.append(key)
-            argv += args
-            if len(keys) >= self.keys_per_call or len(argv) >= self.args_per_call:
-                chunks.append(pack(("EVALSHA", sha, len(keys), *keys, *argv)))
-                keys, argv = [], []
+        for writes in batches:
+            for key, args in writes.hash_updates():
+                keys.append(key)
+                argv += args
+                if len(keys) >= self.keys_per_call or len(argv) >= self.args_per_call:
+                    chunks.append(pack(("EVALSHA", sha, len(keys), *keys, *argv)))
+                    keys, argv = [], []
         if keys:
             chunks.append(pack(("EVALSHA", sha, len(keys), *keys, *argv)))
-        for key, members, expire_at_ms in writes.member_updates():
-            chunks.append(pack(("PFADD", key, *members)))
-            chunks.append(pack(("PEXPIREAT", key, expire_at_ms, "NX")))
-            chunks.append(pack(("PEXPIREAT", key, expire_at_ms, "GT")))
+        for writes in batches:
+            for key, members, expire_at_ms in writes.member_updates():
+                chunks.append(pack(("PFADD", key, *members)))
+                chunks.append(pack(("PEXPIREAT", key, expire_at_ms, "NX")))
+                chunks.append(pack(("PEXPIREAT", key, expire_at_ms, "GT")))
         with store_errors(self.url):
             self._round_trip(chunks)
 
