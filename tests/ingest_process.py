@@ -10,6 +10,8 @@ import time
 import uuid
 from pathlib import Path
 
+from tests.child_process import stop_child
+
 ROOT = Path(__file__).resolve().parent.parent
 
 
@@ -42,13 +44,7 @@ class IngestProcess:
             self.process.wait()
 
     def stop(self) -> None:
-        if self.process is not None and self.process.poll() is None:
-            self.process.send_signal(signal.SIGTERM)
-            try:
-                self.process.wait(timeout=15)
-            except subprocess.TimeoutExpired:
-                self.process.kill()
-                self.process.wait()
+        stop_child(self.process, signal.SIGTERM, timeout_s=15)
 
     def alive(self) -> bool:
         return self.process is not None and self.process.poll() is None

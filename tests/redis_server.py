@@ -15,6 +15,8 @@ from pathlib import Path
 
 import redis
 
+from tests.child_process import stop_child
+
 
 def free_port() -> int:
     with socket.socket() as sock:
@@ -74,13 +76,7 @@ class RedisServer:
         return self
 
     def stop(self) -> None:
-        if self.process is not None and self.process.poll() is None:
-            self.process.terminate()
-            try:
-                self.process.wait(timeout=10)
-            except subprocess.TimeoutExpired:
-                self.process.kill()
-                self.process.wait()
+        stop_child(self.process)
         self.process = None
 
     def kill(self) -> None:

@@ -11,6 +11,7 @@ from pathlib import Path
 
 import httpx
 
+from tests.child_process import stop_child
 from tests.redis_server import free_port
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -50,13 +51,7 @@ class ServiceProcess:
         raise RuntimeError(f"windvane serve did not start:\n{self.log.read_text()}")
 
     def stop(self) -> None:
-        if self.process is not None and self.process.poll() is None:
-            self.process.send_signal(signal.SIGINT)
-            try:
-                self.process.wait(timeout=10)
-            except subprocess.TimeoutExpired:
-                self.process.kill()
-                self.process.wait()
+        stop_child(self.process, signal.SIGINT)
         self.process = None
 
     def __enter__(self) -> ServiceProcess:

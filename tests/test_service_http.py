@@ -2,8 +2,11 @@
 
 from __future__ import annotations
 
+import asyncio
+import contextlib
 import time
-from collections.abc import Iterator
+from collections.abc import AsyncIterator, Iterator
+from typing import Any
 
 import httpx
 import pytest
@@ -18,6 +21,8 @@ from windvane.openrtb import lookups_from_bid_request
 from windvane.rejects import RejectsFile
 from windvane.replay import replay
 from windvane.scoring import Scorer
+from windvane.service_app import create_app, create_asgi
+from windvane.service_config import ServiceConfig
 from windvane.snapshot import parse_snapshot
 
 TOKEN = "test-token-7f3a"
@@ -296,3 +301,45 @@ def test_serve_replay_loads_the_embedded_store_before_listening(tmp_path) -> Non
         replay(expected, [str(log)], rejects)
     assert without_timing(answer) == expected.lookup({"user": "user-3", "app": "app-1", "ts": NOW})
     assert answer["features"]["session_depth"] is not None
+
+
+@contextlib.asynccontextmanager
+async def running(app: Any) -> AsyncIterator[httpx.AsyncClient]:
+    """An in-process client for ``app`` with its lifespan started and stopped around it."""
+    inbox: asyncio.Queue[dict] = asyncio.Queue()
+    outbox: asyncio.Queue[dict] = asyncio.Queue()
+    task = asyncio.create_task(app({"type": "lifespan"}, inbox.get, outbox.put))
+    await inbox.put({"type": "lifespan.startup"})
+    assert (await outbox.get())["type"] == "lifespan.startup.complete"
+    try:
+        transport = httpx.ASGITransport(app=app)
+        async with httpx.AsyncClient(transport=transport, base_url="http://test") as client:
+            yield client
+    finally:
+        await inbox.put({"type": "lifespan.shutdown"})
+        await outbox.get()
+        await task
+
+
+def test_documented_route_answers_as_the_fast_path(loaded: Engine, redis_server) -> None:
+    """The FastAPI route (which the OpenAPI page describes) and the ASGI fast path that
+    serves the bidder must be one implementation: same bodies, same errors."""
+    config = ServiceConfig(
+        store=redis_server.url, defs=str(FEATUREDEFS), read_only=True, deadline_ms=5000
+    )
+    bad = [{"user": "a b"}, {"campaigns": "x"}, {"geo": {"country": "DE"}}, {"ts": "soon"}]
+
+    async def compare() -> int:
+        async with running(create_app(config)) as routed, running(create_asgi(config)) as fast:
+            for body in [*REQUESTS, *bad]:
+                one = await routed.post("/v1/lookup", json=body)
+                two = await fast.post("/v1/lookup", json=body)
+                assert one.status_code == two.status_code, body
+                if one.status_code == 200:
+                    assert without_timing(one.json()) == without_timing(two.json())
+                else:
+                    assert one.status_code == 422, one.text
+                    assert one.json() == two.json()
+        return len(REQUESTS) + len(bad)
+
+    assert asyncio.run(compare()) == 9
