@@ -5,12 +5,12 @@ BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed-stamp
 DEMO_EVENTS ?= 100000
 
-.PHONY: install demo demo-cli test lint format clean
+.PHONY: install demo demo-cli test lint format bench bench-smoke clean
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e '.[test]'
+	$(BIN)/python -m pip install --quiet -e '.[test,bench]'
 	touch $(STAMP)
 
 install: $(STAMP)
@@ -31,6 +31,14 @@ lint: install
 
 test: lint
 	$(BIN)/pytest
+
+# Every benchmark against its floor, under 10 minutes; the report goes to bench/results/.
+bench: install
+	$(BIN)/python -m bench.run
+
+# Tiny sizes, no targets judged: CI runs this so the benchmarks cannot rot.
+bench-smoke: install
+	$(BIN)/python -m bench.run --smoke
 
 format: install
 	$(BIN)/ruff check --fix service demo tests bench
