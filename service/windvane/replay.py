@@ -9,8 +9,6 @@ after a replay is the same for any batch size.
 from __future__ import annotations
 
 import gc
-import queue
-import threading
 import time
 from collections import Counter
 from collections.abc import Callable, Sequence
@@ -22,6 +20,7 @@ from windvane.errors import BadEvent
 from windvane.events import Event, parse_event_line
 from windvane.logfile import read_lines
 from windvane.rejects import RejectsFile
+from windvane.store.base import PendingWrites
 
 DEFAULT_BATCH_SIZE = 5000
 
@@ -69,7 +68,7 @@ def replay(
     collecting = gc.isenabled()
     gc.disable()
     try:
-        with _Writer(engine) as writer:
+        with _Overlapped(engine) as writer:
             _replay_files(
                 engine, paths, rejects, batch_size, progress, until_s, stats, batch, writer
             )
@@ -89,7 +88,7 @@ def _replay_files(
     until_s: float | None,
     stats: ReplayStats,
     batch: list[Event],
-    writer: _Writer,
+    writer: _Overlapped,
 ) -> None:
     for path in paths:
         for number, line in read_lines(path):
@@ -117,54 +116,42 @@ def _replay_files(
 _Range = tuple[int, float, float]  # events applied, first and last event time
 
 
-class _Writer:
-    """Sends batches from a second thread, in order, while the next batch is parsed.
+class _Overlapped:
+    """Keeps one batch on the wire while the next is parsed, in one thread.
 
-    Parsing and routing hold the interpreter; waiting for the store does not, so the
-    store's work on one batch overlaps the parsing of the next. One batch at most waits
-    in hand, and the first failure is raised in the replaying thread.
+    The store works on batch N while this process reads, decodes and routes batch N+1;
+    its replies are read just before N+1 is sent. A thread did the same before, and
+    cost more in handing the interpreter lock back and forth than it saved.
     """
 
     def __init__(self, engine: Engine) -> None:
         self.engine = engine
-        self.queue: queue.Queue[tuple[BatchWrites, _Range] | None] = queue.Queue(maxsize=1)
-        self.error: BaseException | None = None
-        self.thread = threading.Thread(target=self._run, name="windvane-replay-writer", daemon=True)
+        self.pending: PendingWrites | None = None
+        self.applied: _Range = (0, 0.0, 0.0)
 
-    def __enter__(self) -> _Writer:
-        self.thread.start()
+    def __enter__(self) -> _Overlapped:
         return self
 
     def submit(self, writes: BatchWrites, applied: _Range) -> None:
-        self._check()
-        self.queue.put((writes, applied))
+        self.finish()
+        self.pending = self.engine.store.send(writes)
+        self.applied = applied
 
-    def _run(self) -> None:
-        while True:
-            item = self.queue.get()
-            if item is None:
-                return
-            if self.error is not None:
-                continue
-            writes, applied = item
-            try:
-                self.engine.store.apply(writes)
-                self.engine.record(*applied)
-            except BaseException as exc:  # handed to the replaying thread
-                self.error = exc
-
-    def _check(self) -> None:
-        if self.error is not None:
-            raise self.error
+    def finish(self) -> None:
+        pending, self.pending = self.pending, None
+        if pending is not None:
+            pending.wait()
+            self.engine.record(*self.applied)
 
     def __exit__(self, kind: object, exc: object, tb: object) -> None:
-        self.queue.put(None)
-        self.thread.join()
         if exc is None:
-            self._check()
+            self.finish()
+        elif self.pending is not None:
+            self.pending.abandon()
+            self.pending = None
 
 
-def _flush(engine: Engine, batch: list[Event], stats: ReplayStats, writer: _Writer) -> None:
+def _flush(engine: Engine, batch: list[Event], stats: ReplayStats, writer: _Overlapped) -> None:
     times = [event.ts_s for event in batch]
     first, last = min(times), max(times)
     writer.submit(engine.router.batch(batch), (len(batch), first, last))

@@ -13,12 +13,31 @@ from typing import Any
 from windvane.batch_writes import BatchWrites
 
 
+class PendingWrites(ABC):
+    """Writes sent and not yet confirmed: ``wait`` reads the replies, raising the first error."""
+
+    @abstractmethod
+    def wait(self) -> None: ...
+
+    @abstractmethod
+    def abandon(self) -> None:
+        """Give up on the replies (the caller is failing anyway); the connection is closed."""
+
+
 class StateStore(ABC):
     url: str
 
-    @abstractmethod
     def apply(self, *batches: BatchWrites) -> None:
-        """Send every write of the batches in one pipelined round trip."""
+        """Send every write of the batches in one pipelined round trip and wait for it."""
+        self.send(*batches).wait()
+
+    @abstractmethod
+    def send(self, *batches: BatchWrites) -> PendingWrites:
+        """Send the batches' writes in one pipelined write and return without waiting.
+
+        A replay parses its next batch while the store works on this one, with no
+        second thread: the writes are on the wire, the replies wait in the socket.
+        """
 
     @abstractmethod
     def read(self, commands: Sequence[tuple[Any, ...]]) -> list[Any]:

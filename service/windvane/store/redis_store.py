@@ -17,7 +17,7 @@ import redis
 
 from windvane.batch_writes import BatchWrites
 from windvane.errors import StoreError
-from windvane.store.base import StateStore
+from windvane.store.base import PendingWrites, StateStore
 from windvane.store.reachability import store_errors
 from windvane.update_script import UPDATE_SCRIPT, UPDATE_SCRIPT_SHA
 
@@ -44,24 +44,29 @@ class RedisStateStore(StateStore):
             raise StoreError(f"{self.url}: the server hashed the update script differently")
         self._script_loaded = True
 
-    def apply(self, *batches: BatchWrites) -> None:
+    def send(self, *batches: BatchWrites) -> PendingWrites:
         batches = tuple(writes for writes in batches if writes)
         if not batches:
-            return
+            return _Done()
         if not self._script_loaded:
             self._load_script()
-        try:
-            self._send(batches)
-        except redis.exceptions.NoScriptError:
-            self._load_script()
-            self._send(batches)
+        chunks = self._pack(batches)
+        pool = self.client.connection_pool
+        with store_errors(self.url):
+            connection = pool.get_connection()
+            try:
+                connection.send_packed_command([b"".join(chunks)])
+            except BaseException:
+                connection.disconnect()
+                pool.release(connection)
+                raise
+        return _InFlight(self, connection, len(chunks), batches)
 
-    def _send(self, batches: Sequence[BatchWrites]) -> None:
-        """Pack the batch with hiredis and send it as one write; read every reply.
+    def _pack(self, batches: Sequence[BatchWrites]) -> list[bytes]:
+        """Every command of the batches, packed by hiredis.
 
         redis-py's pipeline would do the same with a Python loop over every argument,
-        which costs more than the rest of the update path; the replies are read one by
-        one so that an error reply never leaves the connection out of step.
+        which costs more than the rest of the update path.
         """
         pack = hiredis.pack_command
         sha = UPDATE_SCRIPT_SHA
@@ -82,27 +87,7 @@ class RedisStateStore(StateStore):
                 chunks.append(pack(("PFADD", key, *members)))
                 chunks.append(pack(("PEXPIREAT", key, expire_at_ms, "NX")))
                 chunks.append(pack(("PEXPIREAT", key, expire_at_ms, "GT")))
-        with store_errors(self.url):
-            self._round_trip(chunks)
-
-    def _round_trip(self, chunks: list[bytes]) -> None:
-        pool = self.client.connection_pool
-        connection = pool.get_connection()
-        first_error: redis.exceptions.ResponseError | None = None
-        try:
-            connection.send_packed_command([b"".join(chunks)])
-            for _ in chunks:
-                try:
-                    connection.read_response()
-                except redis.exceptions.ResponseError as exc:
-                    first_error = first_error or exc
-        except BaseException:
-            connection.disconnect()
-            raise
-        finally:
-            pool.release(connection)
-        if first_error is not None:
-            raise first_error
+        return chunks
 
     def read(self, commands: Sequence[tuple[Any, ...]]) -> list[Any]:
         pipe = self.client.pipeline(transaction=False)
@@ -135,3 +120,56 @@ class RedisStateStore(StateStore):
 
     def close(self) -> None:
         self.client.close()
+
+
+class _Done(PendingWrites):
+    def wait(self) -> None:
+        pass
+
+    def abandon(self) -> None:
+        pass
+
+
+class _InFlight(PendingWrites):
+    """One batch on the wire. The replies are read one by one, so that an error reply
+    never leaves the connection out of step; after a server restart emptied the script
+    cache (NOSCRIPT), the batch is sent again, which is safe because every command of a
+    batch is either rejected whole or idempotent."""
+
+    def __init__(
+        self,
+        store: RedisStateStore,
+        connection: Any,
+        replies: int,
+        batches: tuple[BatchWrites, ...],
+    ) -> None:
+        self.store = store
+        self.connection = connection
+        self.replies = replies
+        self.batches = batches
+
+    def wait(self) -> None:
+        store, connection = self.store, self.connection
+        pool = store.client.connection_pool
+        first_error: redis.exceptions.ResponseError | None = None
+        with store_errors(store.url):
+            try:
+                for _ in range(self.replies):
+                    try:
+                        connection.read_response()
+                    except redis.exceptions.ResponseError as exc:
+                        first_error = first_error or exc
+            except BaseException:
+                connection.disconnect()
+                raise
+            finally:
+                pool.release(connection)
+            if isinstance(first_error, redis.exceptions.NoScriptError):
+                store._load_script()
+                store.send(*self.batches).wait()
+            elif first_error is not None:
+                raise first_error
+
+    def abandon(self) -> None:
+        self.connection.disconnect()
+        self.store.client.connection_pool.release(self.connection)
