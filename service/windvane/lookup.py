@@ -24,6 +24,7 @@ class _Missing:
 
 
 MISSING: Any = _Missing()
+_EMPTY: dict[bytes, bytes] = {}
 
 
 class PreparedLookup:
@@ -59,6 +60,21 @@ class LookupReader:
         self.plan = plan
         self.layout = layout
         self._scopes = [_ScopeRead(scope) for scope in plan.scopes]
+        # The answer's shape, worked out once: request-time features, and the names of
+        # the shared and per-candidate ones in plan order, stored ones null until read.
+        self._request_time = [f for f in plan.features if f.state is None]
+        self._shared_names = [f.name for f in plan.features if "campaign" not in f.key_fields]
+        self._stored_per_campaign = [
+            f.name for f in plan.features if f.state is not None and "campaign" in f.key_fields
+        ]
+        # Per scope: (hash field as bytes, field name, (feature name, read) it feeds).
+        self._readers = {
+            id(scope): [
+                (stored.field.encode(), stored.field, [(f.name, f.read) for f in stored.features])
+                for stored in scope.states
+            ]
+            for scope in plan.scopes
+        }
         # Side-key commands (a distinct count's bucket keys) change once per bucket.
         self._side_commands: dict[tuple[str, str, int], tuple[Any, ...]] = {}
 
@@ -108,33 +124,30 @@ class LookupReader:
         in time: those stored features are null and ``stored`` says ``missing``.
         """
         request, t_ms = lookup.request, lookup.t_ms
-        shared: dict[str, Any] = {}
-        per_campaign: dict[str, dict[str, Any]] = {c: {} for c in request.campaigns}
-        for feature in self.plan.features:
-            if feature.state is None:
-                shared[feature.name] = feature.read_request(request)
-            elif "campaign" in feature.key_fields:
-                for values in per_campaign.values():
-                    values[feature.name] = None
-            else:
-                shared[feature.name] = None
+        shared: dict[str, Any] = dict.fromkeys(self._shared_names)
+        for feature in self._request_time:
+            shared[feature.name] = feature.read_request(request)
+        per_campaign: dict[str, dict[str, Any]] = {
+            c: dict.fromkeys(self._stored_per_campaign) for c in request.campaigns
+        }
         missing = replies is None
         if replies is not None:
+            readers = self._readers
             for scope, campaign, index, side in lookup.reads:
-                stored_hash = replies[index] if index >= 0 else {}
+                stored_hash = replies[index] if index >= 0 else _EMPTY
                 target = shared if campaign is None else per_campaign[campaign]
-                for stored in scope.states:
-                    if stored.field in side:
-                        raw = replies[side[stored.field]]
+                for field_bytes, field, features in readers[id(scope)]:
+                    if side and field in side:
+                        raw = replies[side[field]]
                     elif stored_hash is MISSING:
                         raw = MISSING
                     else:
-                        raw = stored_hash.get(stored.field.encode())
+                        raw = stored_hash.get(field_bytes)
                     if raw is MISSING:
                         missing = True
                         continue
-                    for feature in stored.features:
-                        target[feature.name] = feature.read(raw, t_ms)
+                    for name, read in features:
+                        target[name] = read(raw, t_ms)
         return {
             "ts": request.ts_s,
             "user": request.user,

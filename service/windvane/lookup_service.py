@@ -81,10 +81,7 @@ class LookupService:
                 "arm": arm,
                 "weight": active.split.arms[arm].weight,
             }
-            answer["scores"] = {
-                campaign: scorer.score(features, values)
-                for campaign, values in answer["campaigns"].items()
-            }
+            answer["scores"] = scorer.scores(features, answer["campaigns"])
             if not request.campaigns:
                 answer["score"] = scorer.score(features)
         answer["elapsed_ms"] = round((time.perf_counter() - started_s) * 1000, 3)

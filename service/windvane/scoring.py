@@ -27,28 +27,60 @@ def logistic(z: float) -> float:
 
 
 class Scorer:
-    """Scores one snapshot version; ``per_campaign`` names the features valued per candidate."""
+    """Scores one snapshot version; ``per_campaign`` names the features valued per candidate.
+
+    The linear predictor is split in two: the intercept plus the terms that read only
+    shared features, summed once per lookup (``shared_part``), and the terms that read a
+    candidate's own features, summed per candidate (``campaign_part``). ``score`` adds
+    the two the same way whether it is called once or per candidate, so a score never
+    depends on how many candidates the request named.
+    """
 
     def __init__(self, snapshot: Snapshot, per_campaign: frozenset[str]) -> None:
         self.snapshot = snapshot
         self.intercept = snapshot.intercept
         plain: dict[str, TermFunction] = {}
+        reads_campaign: dict[str, bool] = {}
         for term in snapshot.terms:
             if term.product is None:
                 plain[term.name] = _plain_term(term, per_campaign)
-        self._terms: list[tuple[float, TermFunction]] = []
+                feature = term.feature if term.indicator is None else term.indicator.feature
+                reads_campaign[term.name] = feature in per_campaign
+        self._shared_terms: list[tuple[float, TermFunction]] = []
+        self._campaign_terms: list[tuple[float, TermFunction]] = []
         for term in snapshot.terms:
             function = plain.get(term.name) or _product_term(term, plain)
-            self._terms.append((term.weight, function))
+            if term.product is None:
+                per = reads_campaign[term.name]
+            else:
+                per = any(reads_campaign[name] for name in term.product)
+            (self._campaign_terms if per else self._shared_terms).append((term.weight, function))
 
-    def linear(self, shared: Features, campaign: Features) -> float:
+    def shared_part(self, shared: Features) -> float:
         z = self.intercept
-        for weight, function in self._terms:
+        for weight, function in self._shared_terms:
+            z += weight * function(shared, _NONE)[0]
+        return z
+
+    def campaign_part(self, shared: Features, campaign: Features) -> float:
+        z = 0.0
+        for weight, function in self._campaign_terms:
             z += weight * function(shared, campaign)[0]
         return z
 
+    def linear(self, shared: Features, campaign: Features) -> float:
+        return self.shared_part(shared) + self.campaign_part(shared, campaign)
+
     def score(self, shared: Features, campaign: Features | None = None) -> float:
-        return logistic(self.linear(shared, campaign or {}))
+        return logistic(self.linear(shared, campaign or _NONE))
+
+    def scores(self, shared: Features, campaigns: Mapping[str, Features]) -> dict[str, float]:
+        """``score`` for every candidate, with the shared part summed once."""
+        z = self.shared_part(shared)
+        return {name: logistic(z + self.campaign_part(shared, c)) for name, c in campaigns.items()}
+
+
+_NONE: Features = {}
 
 
 def _plain_term(term: Term, per_campaign: frozenset[str]) -> TermFunction:

@@ -146,10 +146,7 @@ class Feature(ABC):
 
     def __init__(self, options: Options) -> None:
         self.options = options
-
-    @property
-    def name(self) -> str:
-        return self.options.name
+        self.name: str = options.name
 
     def read(self, raw: Any, t_ms: int) -> float | int | None:
         """The value from the state's raw stored value (None when nothing is stored)."""
