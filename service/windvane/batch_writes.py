@@ -19,22 +19,18 @@ from collections.abc import Iterator
 BUCKET_OPCODE = "r"
 
 
-class _Segment:
-    __slots__ = ("buckets", "entry", "ops")
+# One segment: [entry id, ops (opcode and arguments, flat), bucket counts or None].
+# A plain list, not an object: a stream batch makes one per entry and key.
+_Segment = list
 
-    def __init__(self, entry: str) -> None:
-        self.entry = entry
-        self.ops: list[str] = []
-        # Made on the first count: a stream batch has a segment per entry and key.
-        self.buckets: dict[tuple[str, int, int], int] | None = None
 
-    def args(self) -> list[str]:
-        ops = self.ops
-        if self.buckets:
-            ops = list(ops)
-            for (field, bucket, span), n in self.buckets.items():
-                ops += (BUCKET_OPCODE, field, str(bucket), str(n), str(span))
-        return [self.entry, str(len(ops)), *ops]
+def _segment_args(segment: _Segment) -> list[str]:
+    entry, ops, buckets = segment
+    if buckets:
+        ops = list(ops)
+        for (field, bucket, span), n in buckets.items():
+            ops += (BUCKET_OPCODE, field, str(bucket), str(n), str(span))
+    return [entry, str(len(ops)), *ops]
 
 
 class BatchWrites:
@@ -63,25 +59,25 @@ class BatchWrites:
     def _segment(self, key: str) -> _Segment:
         segments = self._segments.get(key)
         if segments is None:
-            segment = _Segment(self._entry)
+            segment = [self._entry, [], None]
             self._segments[key] = [segment]
             return segment
         last = segments[-1]
-        if last.entry != self._entry:
-            last = _Segment(self._entry)
+        if last[0] != self._entry:
+            last = [self._entry, [], None]
             segments.append(last)
         return last
 
     def op(self, key: str, *args: str) -> None:
         """An ordered update of one field of the hash at ``key``: an opcode and its arguments."""
-        self._segment(key).ops.extend(args)
+        self._segment(key)[1].extend(args)
 
     def count(self, key: str, field: str, bucket: int, span: int, n: int = 1) -> None:
         """Add ``n`` to one time bucket of a bucketed count (commutative, so pre-added)."""
         segment = self._segment(key)
-        counts = segment.buckets
+        counts = segment[2]
         if counts is None:
-            counts = segment.buckets = {}
+            counts = segment[2] = {}
         slot = (field, bucket, span)
         counts[slot] = counts.get(slot, 0) + n
 
@@ -108,7 +104,7 @@ class BatchWrites:
         for key, segments in self._segments.items():
             args = [str(self._expire_at_ms.get(key, 0)), watermark, str(len(segments))]
             for segment in segments:
-                args += segment.args()
+                args += _segment_args(segment)
             yield key, args
 
     def member_updates(self) -> Iterator[tuple[str, list[str], int]]:

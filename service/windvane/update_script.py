@@ -36,12 +36,12 @@ for ki = 1, #KEYS do
   local k = KEYS[ki]
   local at, wm, nseg = tonumber(ARGV[i]), ARGV[i + 1], tonumber(ARGV[i + 2])
   i = i + 3
-  local fields, codes, segs = {}, {}, {}
+  local fields, codes, sentry, sstart, sstop = {}, {}, {}, {}, {}
   if wm ~= '' then codes[wm] = false; fields[1] = wm end
   for s = 1, nseg do
     local entry, start = ARGV[i], i + 2
     local stop = start + tonumber(ARGV[i + 1])
-    segs[s] = {entry, start, stop}
+    sentry[s], sstart[s], sstop[s] = entry, start, stop
     local j = start
     while j < stop do
       local code = ARGV[j]
@@ -63,10 +63,14 @@ for ki = 1, #KEYS do
     end
   end
   local mark = wm ~= '' and stored[wm] or false
+  -- A key's segments come in stream order (one shard's entries, in id order), so once
+  -- one is past the watermark every later one is too.
+  local passed = wm == ''
   local dirty = false
   for s = 1, nseg do
-    local entry, j, stop = segs[s][1], segs[s][2], segs[s][3]
-    if wm == '' or entry == '' or after(entry, mark) then
+    local entry, j, stop = sentry[s], sstart[s], sstop[s]
+    if passed or entry == '' or after(entry, mark) then
+      if entry ~= '' then passed = true end
       while j < stop do
         local code, f = ARGV[j], ARGV[j + 1]
         local v, touched = APP[code](values[f], ARGV, j + 1)
