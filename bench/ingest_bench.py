@@ -256,6 +256,14 @@ def run(ctx: Context) -> list[Result]:
             },
         ),
         Result(
+            "freshness lag p50 at fixed offered rate",
+            "s",
+            Measure.of([lag["event_lag_p50_s"]]),
+            None,
+            None,
+            {"offered_events_per_s": rate, **lag},
+        ),
+        Result(
             "freshness lag p99 at fixed offered rate",
             "s",
             Measure.of([lag["event_lag_p99_s"]]),

@@ -71,6 +71,8 @@ def run(ctx: Context) -> list[Result]:
         "user_campaign_keys": counts["user+campaign"],
         "apps": counts["app"],
         "used_memory_growth_bytes": growth,
+        "bytes_per_user_hash": sizes["user"] / (counts["user"] or 1),
+        "bytes_per_user_campaign_key": sizes["user+campaign"] / (counts["user+campaign"] or 1),
         "largest_key": largest[0],
         "largest_key_bytes": largest[1],
         "events": events,
