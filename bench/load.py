@@ -1,6 +1,6 @@
 """Closed-loop HTTP load at a fixed concurrency for a fixed time: wrk when installed, else asyncio.
 
-A bidder keeps a few connections open to its feature service and sends the next
+A bidder keeps a few connections open to windvane and sends the next
 request as soon as the previous answer is in, so the load here is the same: a fixed
 number of keep-alive connections, each sending POSTs back to back, cycling through a
 list of JSON bodies. wrk is preferred because it costs the machine almost nothing
