@@ -77,7 +77,7 @@ def test_http_lookup_equals_engine_lookup(
     answer = httpx.post(f"{service.url}/v1/lookup", json=request_body, timeout=5)
     assert answer.status_code == 200, answer.text
     body = answer.json()
-    assert body["elapsed_ms"] >= 0
+    assert isinstance(body["elapsed_ms"], float)  # reported, not judged: speed is in bench/
     assert without_timing(body) == loaded.lookup(request_body)
 
 

@@ -51,14 +51,12 @@ class Engine:
         self.store.apply(writes)
         return writes.events
 
-    def apply_entries(self, shard: int, entries: Iterable[tuple[str, Event]]) -> int:
-        """Apply stream entries of one shard; an entry already applied to a key changes nothing."""
-        writes = self.router.batch_entries(shard, entries)
-        self.store.apply(writes)
-        return writes.events
-
     def apply_shards(self, parts: Sequence[tuple[int, Iterable[tuple[str, Event]]]]) -> int:
-        """``apply_entries`` for several shards at once, still in one round trip."""
+        """Apply stream entries of one or more shards in one round trip.
+
+        Each entry's writes are guarded by its shard's watermark, so an entry already
+        applied to a key changes nothing.
+        """
         batches = [self.router.batch_entries(shard, entries) for shard, entries in parts]
         self.store.apply(*batches)
         return sum(writes.events for writes in batches)

@@ -24,6 +24,7 @@ from windvane.rtb_objects import (
     Identifier,
     Slot,
     check_ids,
+    decode_checked,
     unsafe_id,
     validation_problem,
 )
@@ -81,10 +82,6 @@ class Event(Struct):
         if unsafe_id(f"{self.id}{self.user}{self.app}{self.campaign}{self.creative}"):
             check_ids(self, _ID_FIELDS, BadEvent)
 
-    @property
-    def lmt(self) -> bool:
-        return self.device is not None and bool(self.device.lmt)
-
     def field(self, path: str) -> object:
         """The value at a dotted path such as ``user`` or ``geo.country``."""
         head, _, tail = path.partition(".")
@@ -99,12 +96,7 @@ _DECODER = msgspec.json.Decoder(Event)
 
 def parse_event_line(line: bytes | str) -> Event:
     """Decode and validate one JSON Lines record, or raise ``BadEvent`` naming the field."""
-    try:
-        return _DECODER.decode(line)
-    except msgspec.ValidationError as exc:
-        raise BadEvent(*validation_problem(exc)) from None
-    except msgspec.DecodeError as exc:
-        raise BadEvent("", f"not valid JSON ({exc})") from None
+    return decode_checked(_DECODER, line, BadEvent, "not valid JSON")
 
 
 def parse_event(obj: object) -> Event:

@@ -23,6 +23,7 @@ from windvane.rtb_objects import (
     Identifier,
     Slot,
     check_ids,
+    decode_checked,
     unsafe_id,
     validation_problem,
 )
@@ -84,9 +85,4 @@ def parse_lookup_request(obj: Any) -> LookupRequest:
 
 def decode_lookup_call(body: bytes) -> LookupCall:
     """Decode and validate a lookup body in one pass, or raise ``BadRequest``."""
-    try:
-        return _DECODER.decode(body)
-    except msgspec.ValidationError as exc:
-        raise BadRequest(*validation_problem(exc)) from None
-    except msgspec.DecodeError as exc:
-        raise BadRequest("", f"the body is not valid JSON ({exc})") from None
+    return decode_checked(_DECODER, body, BadRequest, "the body is not valid JSON")

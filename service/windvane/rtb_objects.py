@@ -89,6 +89,18 @@ class Slot(Struct):
     h: Positive
 
 
+def decode_checked(
+    decoder: msgspec.json.Decoder, data: bytes | str, error: ErrorType, not_json: str
+) -> Any:
+    """Decode and validate in one pass; ``error(field, reason)`` for a bad field or bad JSON."""
+    try:
+        return decoder.decode(data)
+    except msgspec.ValidationError as exc:
+        raise error(*validation_problem(exc)) from None
+    except msgspec.DecodeError as exc:
+        raise error("", f"{not_json} ({exc})") from None
+
+
 def validation_problem(exc: msgspec.ValidationError, prefix: str = "") -> tuple[str, str]:
     """(dotted field path, reason in plain words) from a msgspec error."""
     message = str(exc)

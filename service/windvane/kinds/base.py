@@ -25,6 +25,16 @@ EventKind = Literal["request", "bid", "win", "impression", "click"]
 KeyName = Annotated[str, Field(pattern=r"^[a-z+]+$")]
 
 
+# A Lua ``decode`` body for states stored as three numbers, ``a:b:c``.
+DECODE_THREE_NUMBERS = """
+if not s then return nil end
+local p = string.find(s, ':', 1, true)
+local q = string.find(s, ':', p + 1, true)
+return {tonumber(string.sub(s, 1, p - 1)), tonumber(string.sub(s, p + 1, q - 1)),
+        tonumber(string.sub(s, q + 1))}
+"""
+
+
 @dataclass(frozen=True)
 class LuaHandler:
     """One update operation in Lua, in three parts, so a field is parsed once per call.

@@ -21,6 +21,7 @@ from windvane.batch_writes import BatchWrites
 from windvane.durations import format_duration
 from windvane.events import Event
 from windvane.kinds.base import (
+    DECODE_THREE_NUMBERS,
     BuildContext,
     DurationS,
     EventKind,
@@ -32,14 +33,6 @@ from windvane.kinds.base import (
     State,
     check_events,
 )
-
-_DECODE = """
-if not s then return nil end
-local p = string.find(s, ':', 1, true)
-local q = string.find(s, ':', p + 1, true)
-return {tonumber(string.sub(s, 1, p - 1)), tonumber(string.sub(s, p + 1, q - 1)),
-        tonumber(string.sub(s, q + 1))}
-"""
 
 _APPLY = """
 local ts, h, which = tonumber(a[i + 1]), tonumber(a[i + 2]), a[i + 3]
@@ -76,7 +69,9 @@ class DecayedRateOptions(KeyedOptions):
 
 
 class DecayedPair(State):
-    LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {"d": LuaHandler(4, _DECODE, _APPLY, _ENCODE)}
+    LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {
+        "d": LuaHandler(4, DECODE_THREE_NUMBERS, _APPLY, _ENCODE)
+    }
 
     def __init__(
         self, successes: frozenset[str], trials: frozenset[str], half_life_s: int, keep_s: int

@@ -18,6 +18,7 @@ from windvane.batch_writes import BatchWrites
 from windvane.durations import format_duration
 from windvane.events import Event
 from windvane.kinds.base import (
+    DECODE_THREE_NUMBERS,
     BuildContext,
     DurationS,
     Feature,
@@ -26,14 +27,6 @@ from windvane.kinds.base import (
     LuaHandler,
     State,
 )
-
-_DECODE = """
-if not s then return nil end
-local p = string.find(s, ':', 1, true)
-local q = string.find(s, ':', p + 1, true)
-return {tonumber(string.sub(s, 1, p - 1)), tonumber(string.sub(s, p + 1, q - 1)),
-        tonumber(string.sub(s, q + 1))}
-"""
 
 _APPLY = """
 local ts, gap = tonumber(a[i + 1]), tonumber(a[i + 2])
@@ -61,7 +54,9 @@ class SessionOptions(KeyedOptions):
 
 
 class SessionState(State):
-    LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {"s": LuaHandler(3, _DECODE, _APPLY, _ENCODE)}
+    LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {
+        "s": LuaHandler(3, DECODE_THREE_NUMBERS, _APPLY, _ENCODE)
+    }
 
     def __init__(self, gap_s: int) -> None:
         self.events = frozenset({"request"})
