@@ -20,8 +20,8 @@ import redis
 
 from bench.common import ROOT, Context, Measure, Result, redis_cpu_s
 from tests.redis_server import RedisServer
-from windvane.event_stream import append, shard_count, shard_of, shard_of_key
-from windvane.events import parse_event_line
+from windvane.ingest.event_stream import append, shard_count, shard_of, shard_of_key
+from windvane.inputs.events import parse_event_line
 from windvane.keys import ingest_status_key, stream_key
 from windvane_demo.generate import build_log
 

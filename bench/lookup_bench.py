@@ -31,11 +31,11 @@ from bench.load import CONNECTIONS, PERCENTILES, LoadResult, drive, generator_na
 from tests.child_process import stop_child
 from tests.redis_server import RedisServer, free_port
 from windvane.engine import Engine
-from windvane.lookup_request import parse_lookup_request
-from windvane.model_registry import SnapshotStore
-from windvane.rejects import RejectsFile
-from windvane.replay import replay
-from windvane.service_state import feature_shapes
+from windvane.ingest.rejects import RejectsFile
+from windvane.ingest.replay import replay
+from windvane.inputs.lookup_request import parse_lookup_request
+from windvane.models.registry import SnapshotStore
+from windvane.serving.state import feature_shapes
 from windvane_demo.generate import build_log, write_lines
 
 MODEL = "demo-ctr"

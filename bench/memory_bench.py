@@ -14,10 +14,10 @@ import redis
 
 from bench.common import Context, Measure, Result
 from tests.redis_server import RedisServer
+from windvane.definitions.plan import load_plan
 from windvane.engine import Engine
-from windvane.plan import load_plan
-from windvane.rejects import RejectsFile
-from windvane.replay import replay
+from windvane.ingest.rejects import RejectsFile
+from windvane.ingest.replay import replay
 from windvane.store import open_store
 from windvane_demo.generate import build_log, write_lines
 

@@ -15,11 +15,11 @@ import orjson
 
 from bench.common import Context, Measure, Result, Stopwatch, redis_cpu_s
 from tests.redis_server import RedisServer
+from windvane.definitions.plan import load_plan
 from windvane.engine import Engine
-from windvane.logfile import read_lines
-from windvane.plan import load_plan
-from windvane.rejects import RejectsFile
-from windvane.replay import replay
+from windvane.ingest.logfile import read_lines
+from windvane.ingest.rejects import RejectsFile
+from windvane.ingest.replay import replay
 from windvane.store import open_store
 from windvane_demo.generate import build_log, write_lines
 

@@ -11,9 +11,9 @@ from typing import Any
 
 import redis
 
+from windvane.definitions.plan import load_plan
 from windvane.engine import Engine
-from windvane.events import Event, parse_event
-from windvane.plan import load_plan
+from windvane.inputs.events import Event, parse_event
 from windvane.store import open_store
 
 _ids = itertools.count()

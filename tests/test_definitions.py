@@ -8,7 +8,7 @@ import pytest
 
 from tests.conftest import FEATUREDEFS
 from tests.support import write_defs
-from windvane.cli import main
+from windvane.cli.main import main
 
 GOOD = """
 [[feature]]
@@ -133,7 +133,7 @@ def test_demo_feature_set_plan(capsys: pytest.CaptureFixture[str]) -> None:
 
 
 def test_equal_states_share_one_field(tmp_path: Path) -> None:
-    from windvane.plan import load_plan
+    from windvane.definitions.plan import load_plan
 
     plan = load_plan(FEATUREDEFS)
     user = next(s for s in plan.scopes if s.name == "user")

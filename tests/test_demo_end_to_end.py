@@ -7,8 +7,8 @@ from pathlib import Path
 
 from tests.conftest import FEATUREDEFS
 from tests.support import engine_for
-from windvane.rejects import RejectsFile
-from windvane.replay import replay
+from windvane.ingest.rejects import RejectsFile
+from windvane.ingest.replay import replay
 from windvane_demo.generate import build_log, write_lines
 
 # The log ends at the current hour: keys expire in event time, so an old log would be gone.

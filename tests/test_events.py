@@ -7,8 +7,8 @@ from datetime import UTC, datetime
 import pytest
 
 from windvane.errors import BadEvent, BadRequest
-from windvane.events import parse_event, parse_event_line
-from windvane.lookup_request import parse_lookup_request
+from windvane.inputs.events import parse_event, parse_event_line
+from windvane.inputs.lookup_request import parse_lookup_request
 
 # 2026-12-01T09:30:00Z as epoch seconds, written out with datetime (the reference clock).
 BASE = datetime(2026, 12, 1, 9, 30, tzinfo=UTC).timestamp()

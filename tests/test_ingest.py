@@ -18,12 +18,12 @@ from tests.redis_server import RedisServer
 from tests.service_process import ServiceProcess
 from tests.support import compare_generations, engine_for, event
 from windvane.engine import Engine
-from windvane.event_stream import append, shard_count, shard_of
-from windvane.events import parse_event_line
-from windvane.ingest_worker import IngestSettings, IngestWorker
+from windvane.ingest.event_stream import append, shard_count, shard_of
+from windvane.ingest.rejects import RejectsFile
+from windvane.ingest.replay import replay
+from windvane.ingest.worker import IngestSettings, IngestWorker
+from windvane.inputs.events import parse_event_line
 from windvane.keys import DEAD_LETTER_KEY, KeyLayout, stream_key
-from windvane.rejects import RejectsFile
-from windvane.replay import replay
 from windvane.store import open_store
 from windvane_demo.generate import build_log, write_lines
 
@@ -335,7 +335,7 @@ def test_generation_rebuild_never_disturbs_lookups_until_the_switch(
                 assert answers() == expected_before  # still the active generation, unchanged
         expected_after = [rebuilt.lookup(r) for r in requests]
         assert expected_after != expected_before
-        from windvane.generations import Generations
+        from windvane.store.generations import Generations
 
         generations = Generations(open_store(url).client)  # type: ignore[attr-defined]
         assert {g["name"] for g in generations.list()} == {"main", "g2"}

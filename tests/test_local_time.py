@@ -23,8 +23,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from timezonefinder import TimezoneFinder
 
-from windvane import local_time
-from windvane.local_time import LARGEST_CITY_ZONE, local_hour_dow, resolve_zone, warm_up
+from windvane.kinds import local_time
+from windvane.kinds.local_time import LARGEST_CITY_ZONE, local_hour_dow, resolve_zone, warm_up
 
 START_2000 = int(datetime(2000, 1, 1, tzinfo=UTC).timestamp())
 END_2035 = int(datetime(2036, 1, 1, tzinfo=UTC).timestamp()) - 1

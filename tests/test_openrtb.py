@@ -18,9 +18,9 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from windvane.errors import BadRequest
-from windvane.lookup_request import LookupRequest
-from windvane.openrtb import lookups_from_bid_request
-from windvane.rtb_objects import Device, Geo, Slot
+from windvane.inputs.lookup_request import LookupRequest
+from windvane.inputs.openrtb import lookups_from_bid_request
+from windvane.inputs.rtb_objects import Device, Geo, Slot
 
 TS = 1_796_117_400.0  # 2026-12-01T09:30:00Z
 

@@ -12,8 +12,8 @@ import pytest
 
 from tests.conftest import FEATUREDEFS
 from tests.support import dump_state, engine_for
-from windvane.rejects import RejectsFile
-from windvane.replay import replay
+from windvane.ingest.rejects import RejectsFile
+from windvane.ingest.replay import replay
 from windvane.store import open_store
 
 NOW = round(time.time())

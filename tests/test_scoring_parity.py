@@ -19,10 +19,10 @@ from sklearn.linear_model import LogisticRegression
 
 from tests.conftest import FEATUREDEFS
 from tests.support import engine_for
-from windvane.rejects import RejectsFile
-from windvane.replay import replay
-from windvane.scoring import Scorer
-from windvane.snapshot import parse_snapshot
+from windvane.ingest.rejects import RejectsFile
+from windvane.ingest.replay import replay
+from windvane.models.scoring import Scorer
+from windvane.models.snapshot import parse_snapshot
 from windvane_demo.generate import build_log, write_lines
 
 CTR_MEAN, CTR_SCALE = 0.006, 0.003

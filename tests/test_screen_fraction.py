@@ -11,8 +11,8 @@ from __future__ import annotations
 import pytest
 
 from tests.conftest import FEATUREDEFS
-from windvane.lookup_request import parse_lookup_request
-from windvane.plan import load_plan
+from windvane.definitions.plan import load_plan
+from windvane.inputs.lookup_request import parse_lookup_request
 
 PLAN = load_plan(FEATUREDEFS)
 FEATURE = next(f for f in PLAN.features if f.name == "screen_fraction")

@@ -11,7 +11,7 @@ import httpx
 from tests.conftest import FEATUREDEFS, ROOT
 from tests.service_process import ServiceProcess
 from tests.test_snapshots import GOOD
-from windvane.model_registry import SnapshotStore
+from windvane.models.registry import SnapshotStore
 from windvane.store import open_store
 
 TOKEN = "s3cret-token"

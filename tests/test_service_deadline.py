@@ -23,12 +23,12 @@ from tests.service_process import ServiceProcess
 from tests.support import engine_for
 from tests.test_replay import good_lines
 from tests.test_snapshots import GOOD
-from windvane.model_registry import SnapshotStore
-from windvane.rejects import RejectsFile
-from windvane.replay import replay
-from windvane.scoring import Scorer
-from windvane.service_state import feature_shapes
-from windvane.snapshot import parse_snapshot
+from windvane.ingest.rejects import RejectsFile
+from windvane.ingest.replay import replay
+from windvane.models.registry import SnapshotStore
+from windvane.models.scoring import Scorer
+from windvane.models.snapshot import parse_snapshot
+from windvane.serving.state import feature_shapes
 
 STORED = ("session_depth", "imps_24h", "clicks_7d", "secs_since_imp", "app_win_rate", "app_ctr")
 NOW = round(time.time())

@@ -17,13 +17,13 @@ from tests.support import engine_for
 from tests.test_replay import good_lines
 from tests.test_snapshots import GOOD
 from windvane.engine import Engine
-from windvane.openrtb import lookups_from_bid_request
-from windvane.rejects import RejectsFile
-from windvane.replay import replay
-from windvane.scoring import Scorer
-from windvane.service_app import create_app, create_asgi
-from windvane.service_config import ServiceConfig
-from windvane.snapshot import parse_snapshot
+from windvane.ingest.rejects import RejectsFile
+from windvane.ingest.replay import replay
+from windvane.inputs.openrtb import lookups_from_bid_request
+from windvane.models.scoring import Scorer
+from windvane.models.snapshot import parse_snapshot
+from windvane.serving.app import create_app, create_asgi
+from windvane.serving.config import ServiceConfig
 
 TOKEN = "test-token-7f3a"
 AUTH = {"Authorization": f"Bearer {TOKEN}"}
@@ -219,8 +219,8 @@ def test_publish_split_score_and_rollback_over_http(
 
 
 def test_activation_reaches_every_worker_within_a_second(redis_server, loaded: Engine) -> None:
-    from windvane.model_registry import Arm, SnapshotStore
-    from windvane.service_state import feature_shapes
+    from windvane.models.registry import Arm, SnapshotStore
+    from windvane.serving.state import feature_shapes
 
     registry = SnapshotStore(loaded.store.client, feature_shapes(loaded.plan))  # type: ignore[attr-defined]
     registry.publish("fleet", {**GOOD, "version": "a"}, "test", activate=True)

@@ -8,12 +8,12 @@ import math
 import pytest
 
 from tests.conftest import FEATUREDEFS
+from windvane.definitions.plan import load_plan
 from windvane.errors import BadSnapshot, UnknownModel
-from windvane.model_registry import Arm, SnapshotStore
-from windvane.plan import load_plan
-from windvane.scoring import Scorer, logistic
-from windvane.service_state import feature_shapes
-from windvane.snapshot import parse_snapshot
+from windvane.models.registry import Arm, SnapshotStore
+from windvane.models.scoring import Scorer, logistic
+from windvane.models.snapshot import parse_snapshot
+from windvane.serving.state import feature_shapes
 from windvane.store import open_store
 
 SHAPES = feature_shapes(load_plan(FEATUREDEFS))

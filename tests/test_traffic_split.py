@@ -9,7 +9,7 @@ import sys
 import pytest
 
 from tests.conftest import ROOT
-from windvane.traffic_split import choose_arm
+from windvane.models.traffic_split import choose_arm
 
 USERS = [f"user-{n:06d}" for n in range(100_000)]
 
@@ -30,7 +30,7 @@ def test_arm_is_stable_and_independent_of_the_process() -> None:
     here = [choose_arm("ctr", u, (90, 10)) for u in USERS[:2000]]
     assert here == [choose_arm("ctr", u, (90, 10)) for u in USERS[:2000]]
     code = (
-        "from windvane.traffic_split import choose_arm\n"
+        "from windvane.models.traffic_split import choose_arm\n"
         "print(''.join(str(choose_arm('ctr', f'user-{n:06d}', (90, 10))) for n in range(2000)))"
     )
     env = {**os.environ, "PYTHONHASHSEED": "12345", "PYTHONPATH": str(ROOT / "service")}

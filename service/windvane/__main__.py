@@ -1,5 +1,5 @@
 import sys
 
-from windvane.cli import main
+from windvane.cli.main import main
 
 sys.exit(main())

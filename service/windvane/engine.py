@@ -10,14 +10,14 @@ from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import Any
 
-from windvane.events import Event
-from windvane.generations import Generations
+from windvane.definitions.plan import Plan, load_plan
+from windvane.inputs.events import Event
+from windvane.inputs.lookup_request import LookupRequest, parse_lookup_request
 from windvane.keys import DEFAULT_GENERATION, KeyLayout
-from windvane.lookup import LookupReader
-from windvane.lookup_request import LookupRequest, parse_lookup_request
-from windvane.plan import Plan, load_plan
+from windvane.state.lookup_reader import LookupReader
+from windvane.state.update_router import UpdateRouter
 from windvane.store import StateStore, open_store
-from windvane.updates import UpdateRouter
+from windvane.store.generations import Generations
 
 
 class Engine:

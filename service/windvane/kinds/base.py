@@ -15,10 +15,10 @@ from typing import Annotated, Any, ClassVar, Literal
 
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
 
-from windvane.batch_writes import BatchWrites
 from windvane.durations import format_duration, parse_duration_s
-from windvane.events import EVENT_KINDS, Event
-from windvane.lookup_request import LookupRequest
+from windvane.inputs.events import EVENT_KINDS, Event
+from windvane.inputs.lookup_request import LookupRequest
+from windvane.kinds.batch_writes import BatchWrites
 
 DurationS = Annotated[int, BeforeValidator(parse_duration_s)]
 EventKind = Literal["request", "bid", "win", "impression", "click"]
@@ -93,7 +93,7 @@ class State(ABC):
     signature, so changing a definition's parameters never misreads old state.
     """
 
-    #: Opcode -> its Lua handler, run by the update script (see ``windvane.update_script``).
+    #: Opcode -> its Lua handler, run by the update script (see ``windvane.state.update_script``).
     LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {}
 
     events: frozenset[str]

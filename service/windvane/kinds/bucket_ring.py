@@ -11,10 +11,10 @@ from __future__ import annotations
 
 from typing import ClassVar
 
-from windvane.batch_writes import BUCKET_OPCODE, BatchWrites
 from windvane.durations import format_duration
-from windvane.events import Event
+from windvane.inputs.events import Event
 from windvane.kinds.base import LuaHandler, State, check_events, check_window
+from windvane.kinds.batch_writes import BUCKET_OPCODE, BatchWrites
 
 _DECODE = """
 if not s then return nil end

@@ -17,9 +17,8 @@ from typing import ClassVar
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from windvane.batch_writes import BatchWrites
 from windvane.durations import format_duration
-from windvane.events import Event
+from windvane.inputs.events import Event
 from windvane.kinds.base import (
     DECODE_THREE_NUMBERS,
     BuildContext,
@@ -33,6 +32,7 @@ from windvane.kinds.base import (
     State,
     check_events,
 )
+from windvane.kinds.batch_writes import BatchWrites
 
 _APPLY = """
 local ts, h, which = tonumber(a[i + 1]), tonumber(a[i + 2]), a[i + 3]

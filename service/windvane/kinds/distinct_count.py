@@ -16,9 +16,8 @@ from collections.abc import Callable
 from operator import attrgetter
 from typing import Any
 
-from windvane.batch_writes import BatchWrites
 from windvane.durations import format_duration
-from windvane.events import EVENT_FIELDS, Event
+from windvane.inputs.events import EVENT_FIELDS, Event
 from windvane.keys import KeyLayout
 from windvane.kinds.base import (
     BuildContext,
@@ -32,6 +31,7 @@ from windvane.kinds.base import (
     check_events,
     check_window,
 )
+from windvane.kinds.batch_writes import BatchWrites
 
 # A dense Redis HyperLogLog is 12 KiB plus a small header (Redis documentation).
 _DENSE_HLL_BYTES = 12_304

@@ -2,16 +2,16 @@
 
 The zone comes from ``geo.utcoffset`` when present, else from ``geo.lat``/``geo.lon``
 through the IANA zone boundaries, else from ``geo.country``, else UTC (see
-``windvane.local_time``). Request-time only: nothing is stored.
+``windvane.kinds.local_time``). Request-time only: nothing is stored.
 """
 
 from __future__ import annotations
 
 from typing import Literal
 
+from windvane.inputs.lookup_request import LookupRequest
 from windvane.kinds.base import BuildContext, Feature, FeatureKind, Options
-from windvane.local_time import local_hour_dow
-from windvane.lookup_request import LookupRequest
+from windvane.kinds.local_time import local_hour_dow
 
 
 class LocalClockOptions(Options):

@@ -9,9 +9,8 @@ from __future__ import annotations
 
 from typing import ClassVar
 
-from windvane.batch_writes import BatchWrites
 from windvane.durations import format_duration
-from windvane.events import Event
+from windvane.inputs.events import Event
 from windvane.kinds.base import (
     BuildContext,
     DurationS,
@@ -23,6 +22,7 @@ from windvane.kinds.base import (
     State,
     check_events,
 )
+from windvane.kinds.batch_writes import BatchWrites
 
 _DECODE = """
 if not s then return nil end

@@ -12,9 +12,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from windvane.device_table import DeviceTableError, load_device_table
+from windvane.inputs.lookup_request import LookupRequest
 from windvane.kinds.base import BuildContext, Feature, FeatureKind, FieldProblem, Options
-from windvane.lookup_request import LookupRequest
+from windvane.kinds.device_table import DeviceTableError, load_device_table
 
 
 class ScreenFractionOptions(Options):

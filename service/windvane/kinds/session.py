@@ -14,9 +14,8 @@ from __future__ import annotations
 
 from typing import ClassVar, Literal
 
-from windvane.batch_writes import BatchWrites
 from windvane.durations import format_duration
-from windvane.events import Event
+from windvane.inputs.events import Event
 from windvane.kinds.base import (
     DECODE_THREE_NUMBERS,
     BuildContext,
@@ -27,6 +26,7 @@ from windvane.kinds.base import (
     LuaHandler,
     State,
 )
+from windvane.kinds.batch_writes import BatchWrites
 
 _APPLY = """
 local ts, gap = tonumber(a[i + 1]), tonumber(a[i + 2])

@@ -10,7 +10,7 @@ from abc import ABC, abstractmethod
 from collections.abc import Iterator, Sequence
 from typing import Any
 
-from windvane.batch_writes import BatchWrites
+from windvane.kinds.batch_writes import BatchWrites
 
 
 class PendingWrites(ABC):

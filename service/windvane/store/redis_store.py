@@ -15,11 +15,11 @@ from typing import Any
 import hiredis
 import redis
 
-from windvane.batch_writes import BatchWrites
 from windvane.errors import StoreError
+from windvane.kinds.batch_writes import BatchWrites
+from windvane.state.update_script import UPDATE_SCRIPT, UPDATE_SCRIPT_SHA
 from windvane.store.base import PendingWrites, StateStore
-from windvane.store.reachability import store_errors
-from windvane.update_script import UPDATE_SCRIPT, UPDATE_SCRIPT_SHA
+from windvane.store.redis_errors import store_errors
 
 
 class RedisStateStore(StateStore):

@@ -1,0 +1,1 @@
+"""The ``windvane`` command: one module per family of commands, shared options in ``options``."""

@@ -1,0 +1,1 @@
+"""Feature definition files and the plan compiled from them."""

@@ -1,0 +1,1 @@
+"""Getting events in: log files and replay, the event stream and its workers, their freshness."""

@@ -1,0 +1,118 @@
+"""The event stream: Redis Streams sharded by user, and how producers append to it.
+
+Entry format, for producers in any language: ``XADD wv:events:{s<n>} * event <json>``,
+where ``<json>`` is one event exactly as a log line (see the README's event table) and
+``n`` is the shard: ``blake2b(key, digest_size=8)`` as a big-endian unsigned integer,
+modulo the shard count, where ``key`` is the event's ``user``, or its ``app`` when it
+has no user, or its ``id`` when it has neither. The shard count is stored at
+``wv:events:shards``. All events of one user land in one shard, so one worker applies
+them in order.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import orjson
+import redis
+
+from windvane.errors import BadEvent, UsageError
+from windvane.inputs.events import Event, parse_event
+from windvane.keys import SHARD_COUNT_KEY, stream_key
+
+DEFAULT_SHARDS = 4
+ENTRY_FIELD = b"event"
+
+
+def shard_of(event: Event, shards: int) -> int:
+    return shard_of_key(event.user or event.app or event.id, shards)
+
+
+def shard_of_key(key: str, shards: int) -> int:
+    """The shard of a user id (or app, or auction id): stable across processes and languages."""
+    digest = hashlib.blake2b(key.encode(), digest_size=8).digest()
+    return int.from_bytes(digest, "big") % shards
+
+
+@dataclass(frozen=True)
+class Rejected:
+    index: int
+    field: str
+    reason: str
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"index": self.index, "field": self.field, "reason": self.reason}
+
+
+def decode_body(body: bytes) -> list[Any]:
+    """A POST body: a JSON array of events, or JSON Lines (one event per line)."""
+    stripped = body.lstrip()
+    if stripped.startswith(b"["):
+        try:
+            items = orjson.loads(stripped)
+        except orjson.JSONDecodeError as exc:
+            raise BadEvent("", f"the body is not a valid JSON array ({exc})") from None
+        return list(items)
+    items: list[Any] = []
+    for line in body.splitlines():
+        if not line.strip():
+            continue
+        try:
+            items.append(orjson.loads(line))
+        except orjson.JSONDecodeError as exc:
+            items.append(_Unreadable(str(exc)))
+    return items
+
+
+class _Unreadable:
+    def __init__(self, reason: str) -> None:
+        self.reason = reason
+
+
+def prepare(items: Sequence[Any], shards: int) -> tuple[list[tuple[int, bytes]], list[Rejected]]:
+    """Validate each item with the replay rules: (shard, entry bytes) to append, and rejections."""
+    accepted: list[tuple[int, bytes]] = []
+    rejected: list[Rejected] = []
+    for index, item in enumerate(items):
+        if isinstance(item, _Unreadable):
+            rejected.append(Rejected(index, "", f"not valid JSON ({item.reason})"))
+            continue
+        try:
+            event = parse_event(item)
+        except BadEvent as exc:
+            rejected.append(Rejected(index, exc.field, exc.reason))
+            continue
+        accepted.append((shard_of(event, shards), orjson.dumps(item)))
+    return accepted, rejected
+
+
+def shard_count(client: redis.Redis, wanted: int | None = None) -> int:
+    """The stream's shard count, fixed by whoever used it first; a mismatch is refused."""
+    proposed = wanted or DEFAULT_SHARDS
+    client.set(SHARD_COUNT_KEY, proposed, nx=True)
+    stored = int(client.get(SHARD_COUNT_KEY) or proposed)
+    if wanted is not None and wanted != stored:
+        raise UsageError(
+            f"the stream already has {stored} shards; producers and workers must agree "
+            f"(drop --shards or use {stored})"
+        )
+    return stored
+
+
+def append(client: redis.Redis, entries: Iterable[tuple[int, bytes]]) -> list[str]:
+    """Append entries in one pipelined round trip; returns their stream ids."""
+    pipe = client.pipeline(transaction=False)
+    for shard, body in entries:
+        pipe.xadd(stream_key(shard), {ENTRY_FIELD: body})
+    return [i.decode() if isinstance(i, bytes) else i for i in pipe.execute()]
+
+
+async def append_async(client: Any, entries: Iterable[tuple[int, bytes]]) -> list[str]:
+    """The same as ``append`` on an asyncio client, for the HTTP service."""
+    pipe = client.pipeline(transaction=False)
+    for shard, body in entries:
+        pipe.xadd(stream_key(shard), {ENTRY_FIELD: body})
+    return [i.decode() if isinstance(i, bytes) else i for i in await pipe.execute()]

@@ -1,0 +1,1 @@
+"""What arrives from outside, validated: OpenRTB-shaped objects, events, lookup requests, times."""

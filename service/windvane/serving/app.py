@@ -1,0 +1,77 @@
+"""The FastAPI application: routes from ``api``, state from ``service_state``, docs at /docs."""
+
+from __future__ import annotations
+
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+from typing import Any
+
+from fastapi import FastAPI
+from fastapi.openapi.utils import get_openapi
+from pydantic.json_schema import models_json_schema
+
+from windvane.models.snapshot import Snapshot
+from windvane.serving.config import ServiceConfig
+from windvane.serving.fast_path import FastLookup
+from windvane.serving.routes import install_error_handlers, router
+from windvane.serving.schema import LookupBody
+from windvane.serving.state import ServiceState
+
+DESCRIPTION = """\
+Behavioural features, model coefficients and scores for a real-time bidder.
+
+`POST /v1/lookup` answers one auction within its deadline (default 5 ms): features
+shared by all candidates, per-campaign features, the model version and traffic arm
+used, and a score per candidate. When the store is slow or down, the answer still
+arrives in time with `"stored": "missing"` and scores from the snapshot's defaults.
+Writes (publishing, activating, rolling back) need `Authorization: Bearer <token>`.
+"""
+
+
+def create_app(config: ServiceConfig) -> FastAPI:
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        state = await ServiceState.start(config)
+        app.state.windvane = state
+        try:
+            yield
+        finally:
+            await state.close()
+
+    app = FastAPI(
+        title="windvane",
+        version="0.1.0",
+        description=DESCRIPTION,
+        lifespan=lifespan,
+    )
+    app.include_router(router)
+    install_error_handlers(app)
+
+    def openapi() -> dict[str, Any]:
+        if app.openapi_schema is None:
+            schema = get_openapi(
+                title=app.title, version=app.version, description=app.description,
+                routes=app.routes,
+            )  # fmt: skip
+            _, definitions = models_json_schema(
+                [(LookupBody, "validation"), (Snapshot, "validation")],
+                ref_template="#/components/schemas/{model}",
+            )
+            schema.setdefault("components", {}).setdefault("schemas", {}).update(
+                definitions.get("$defs", {})
+            )
+            app.openapi_schema = schema
+        return app.openapi_schema
+
+    app.openapi = openapi  # type: ignore[method-assign]
+    return app
+
+
+def create_asgi(config: ServiceConfig) -> FastLookup:
+    """What uvicorn serves: the application behind the lookup fast path."""
+    return FastLookup(create_app(config))
+
+
+def app_from_environment() -> FastLookup:
+    """The factory uvicorn calls in each worker process (``--workers N``)."""
+    return create_asgi(ServiceConfig.from_environment())

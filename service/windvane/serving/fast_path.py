@@ -1,0 +1,79 @@
+"""POST /v1/lookup, the bidder's call, answered straight from ASGI.
+
+Every auction passes through here, so the hot path skips the framework: ``FastLookup``
+wraps the FastAPI application, answers ``POST /v1/lookup`` itself and hands every
+other request on. The FastAPI route for the same path calls the same ``answer_lookup``
+and documents the endpoint in the OpenAPI document, so there is one implementation.
+"""
+
+from __future__ import annotations
+
+import time
+from typing import Any
+
+import orjson
+
+from windvane.errors import BadRequest
+from windvane.inputs.lookup_request import decode_lookup_call
+from windvane.serving.http_errors import JSON, error_answer
+from windvane.serving.lookup_service import check_deadline_ms
+
+LOOKUP_PATH = "/v1/lookup"
+DEADLINE_HEADER = b"x-deadline-ms"
+
+
+async def answer_lookup(
+    state: Any, body: bytes, deadline_header: bytes | None, started_s: float
+) -> bytes:
+    """The answer to one lookup body; raises windvane errors for the caller to map."""
+    call = decode_lookup_call(body)
+    deadline_ms = call.deadline_ms
+    if deadline_ms is None:
+        deadline_ms = header_deadline(deadline_header)
+    answer = await state.lookups.lookup(call, call.model, deadline_ms, started_s)
+    return orjson.dumps(answer)
+
+
+def header_deadline(value: bytes | str | None) -> float | None:
+    """The ``X-Deadline-Ms`` header's deadline, or None when it is absent."""
+    if value is None:
+        return None
+    try:
+        return check_deadline_ms(float(value), "X-Deadline-Ms")
+    except ValueError:
+        raise BadRequest("X-Deadline-Ms", "must be a number of milliseconds") from None
+
+
+class FastLookup:
+    """ASGI middleware that serves ``POST /v1/lookup`` without the framework's layers."""
+
+    def __init__(self, app: Any) -> None:
+        self.app = app
+
+    async def __call__(self, scope: dict[str, Any], receive: Any, send: Any) -> None:
+        if scope["type"] != "http" or scope["path"] != LOOKUP_PATH or scope["method"] != "POST":
+            await self.app(scope, receive, send)
+            return
+        started = time.perf_counter()
+        chunks = []
+        more = True
+        while more:
+            message = await receive()
+            chunks.append(message.get("body", b""))
+            more = message.get("more_body", False)
+        deadline = None
+        for name, value in scope["headers"]:
+            if name == DEADLINE_HEADER:
+                deadline = value
+        status, headers = 200, [(b"content-type", JSON.encode())]
+        try:
+            body = await answer_lookup(self.app.state.windvane, b"".join(chunks), deadline, started)
+        except Exception as exc:
+            mapped = error_answer(exc)
+            if mapped is None:
+                raise
+            status, body, extra = mapped
+            headers += [(k.lower().encode(), v.encode()) for k, v in extra.items()]
+        headers.append((b"content-length", str(len(body)).encode()))
+        await send({"type": "http.response.start", "status": status, "headers": headers})
+        await send({"type": "http.response.body", "body": body})

@@ -1,0 +1,123 @@
+"""The service's lookup: the engine's read path plus a deadline, a reply cache and scoring.
+
+The features come from ``LookupReader`` (the one read path); this module only decides
+where replies come from (the per-app cache or one pipelined round trip) and how long
+to wait for them. When the store does not answer before the deadline, the answer goes
+out anyway: request-time features, cached app features, null stored features,
+``"stored": "missing"``, and scores from the snapshot's defaults for missing values.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import time
+from typing import Any
+
+from windvane.errors import BadRequest, StoreError
+from windvane.inputs.lookup_request import LookupRequest
+from windvane.models.cache import ModelCache
+from windvane.serving.reply_cache import ReplyCache
+from windvane.state.lookup_reader import MISSING, LookupReader
+from windvane.store.async_store import AsyncStateReader
+
+DEFAULT_DEADLINE_MS = 5.0
+MAX_DEADLINE_MS = 10_000.0
+
+
+def check_deadline_ms(value: object, field: str = "deadline_ms") -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise BadRequest(field, "must be a number of milliseconds")
+    if not 0 < value <= MAX_DEADLINE_MS:
+        raise BadRequest(field, f"must be above 0 and at most {MAX_DEADLINE_MS:g} ms")
+    return float(value)
+
+
+class LookupService:
+    def __init__(
+        self,
+        reader: LookupReader,
+        store: AsyncStateReader,
+        cache: ReplyCache,
+        models: ModelCache,
+        deadline_ms: float = DEFAULT_DEADLINE_MS,
+        default_model: str | None = None,
+    ) -> None:
+        self.reader = reader
+        self.store = store
+        self.cache = cache
+        self.models = models
+        self.deadline_ms = deadline_ms
+        self.default_model = default_model
+        #: Lookups whose store read failed or ran out of time (shown by /v1/health).
+        self.store_misses = 0
+
+    async def lookup(
+        self,
+        request: LookupRequest,
+        model: str | None = None,
+        deadline_ms: float | None = None,
+        started_s: float | None = None,
+    ) -> dict[str, Any]:
+        """Features, and scores when a model is named or configured, before the deadline.
+
+        ``started_s`` (``time.perf_counter()``) is when the request reached the service,
+        so time spent reading the body counts against the deadline too.
+        """
+        started_s = time.perf_counter() if started_s is None else started_s
+        budget_s = (deadline_ms or self.deadline_ms) / 1000
+        name = model or self.default_model
+        active = self.models.get(name) if name is not None else None  # UnknownModel -> 404
+        prepared = self.reader.prepare(request)
+        replies = await self._replies(prepared.commands, prepared.cacheable, started_s, budget_s)
+        answer = self.reader.answer(prepared, replies)
+        if active is not None:
+            # Restricted requests use no user id at all, so they go to the control arm.
+            arm = active.arm_for(None if request.restricted else request.user)
+            scorer = active.scorers[arm]
+            features = answer["features"]
+            answer["model"] = {
+                "name": active.name,
+                "version": active.split.arms[arm].version,
+                "arm": arm,
+                "weight": active.split.arms[arm].weight,
+            }
+            answer["scores"] = scorer.scores(features, answer["campaigns"])
+            if not request.campaigns:
+                answer["score"] = scorer.score(features)
+        answer["elapsed_ms"] = round((time.perf_counter() - started_s) * 1000, 3)
+        return answer
+
+    async def _replies(
+        self,
+        commands: list[tuple[Any, ...]],
+        cacheable: list[bool],
+        started_s: float,
+        budget_s: float,
+    ) -> list[Any]:
+        replies: list[Any] = [MISSING] * len(commands)
+        wanted: list[int] = []
+        now = time.monotonic()
+        for index, command in enumerate(commands):
+            if cacheable[index]:
+                hit, reply = self.cache.get(command, now)
+                if hit:
+                    replies[index] = reply
+                    continue
+            wanted.append(index)
+        if not wanted:
+            return replies
+        remaining_s = budget_s - (time.perf_counter() - started_s)
+        if remaining_s <= 0:
+            return replies
+        try:
+            async with asyncio.timeout(remaining_s):
+                fetched = await self.store.read([commands[i] for i in wanted])
+        except (TimeoutError, StoreError):
+            self.store_misses += 1
+            return replies
+        now = time.monotonic()
+        for index, reply in zip(wanted, fetched, strict=True):
+            replies[index] = reply
+            if cacheable[index]:
+                self.cache.put(commands[index], reply, now)
+        return replies
