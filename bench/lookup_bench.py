@@ -34,7 +34,7 @@ from windvane.engine import Engine
 from windvane.ingest.rejects import RejectsFile
 from windvane.ingest.replay import replay
 from windvane.inputs.lookup_request import parse_lookup_request
-from windvane.models.registry import SnapshotStore
+from windvane.models.registry import ModelRegistry
 from windvane.serving.state import feature_shapes
 from windvane_demo.generate import build_log, write_lines
 
@@ -149,7 +149,7 @@ def load_demo(redis_url: str, events: int, work: Path) -> list[bytes]:
     try:
         with RejectsFile(work / "rejects.jsonl") as rejects:
             replay(engine, [str(log)], rejects)
-        registry = SnapshotStore(engine.store.client, feature_shapes(engine.plan))  # type: ignore[attr-defined]
+        registry = ModelRegistry(engine.store.client, feature_shapes(engine.plan))  # type: ignore[attr-defined]
         registry.publish(MODEL, SNAPSHOT.read_bytes(), "bench", activate=True)
     finally:
         engine.close()

@@ -70,9 +70,9 @@ def compare_generations(engine_a: Engine, engine_b: Engine) -> list[str]:
     would differ by far more.
     """
     decayed = {
-        (scope.name, stored.field)
-        for scope in engine_a.plan.scopes
-        for stored in scope.states
+        (key_shape.name, stored.field)
+        for key_shape in engine_a.plan.key_shapes
+        for stored in key_shape.states
         if stored.state.signature.startswith("decayed(")
     }
     a, b = _by_suffix(engine_a), _by_suffix(engine_b)
@@ -94,10 +94,10 @@ def compare_generations(engine_a: Engine, engine_b: Engine) -> list[str]:
             continue
         fields_a = {f: v for f, v in value_a.items() if not f.startswith(b"_w")}
         fields_b = {f: v for f, v in value_b.items() if not f.startswith(b"_w")}
-        scope = "user+campaign" if ":c:" in key else ("user" if "{u:" in key else "app")
+        key_shape = "user+campaign" if ":c:" in key else ("user" if "{u:" in key else "app")
         for field in sorted(fields_a.keys() | fields_b.keys()):
             x, y = fields_a.get(field), fields_b.get(field)
-            if (scope, field.decode()) in decayed and x and y:
+            if (key_shape, field.decode()) in decayed and x and y:
                 if not _close_decayed(x, y):
                     problems.append(f"{key} {field!r}: {x!r} != {y!r}")
             elif x != y:

@@ -136,7 +136,7 @@ def test_equal_states_share_one_field(tmp_path: Path) -> None:
     from windvane.definitions.plan import load_plan
 
     plan = load_plan(FEATUREDEFS)
-    user = next(s for s in plan.scopes if s.name == "user")
+    user = next(s for s in plan.key_shapes if s.name == "user")
     session = [
         s
         for s in user.states

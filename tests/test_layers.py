@@ -146,7 +146,10 @@ def test_every_module_has_a_layer() -> None:
         ({"windvane.errors": set(), "windvane.engine": {"windvane.errors"}}, 0, 0),
         ({"windvane.errors": {"windvane.engine"}, "windvane.engine": set()}, 1, 0),
         (
-            {"windvane.ingest.a": {"windvane.ingest.b"}, "windvane.ingest.b": {"windvane.ingest.a"}},
+            {
+                "windvane.ingest.a": {"windvane.ingest.b"},
+                "windvane.ingest.b": {"windvane.ingest.a"},
+            },
             0,
             1,
         ),

@@ -11,7 +11,7 @@ import httpx
 from tests.conftest import FEATUREDEFS, ROOT
 from tests.service_process import ServiceProcess
 from tests.test_snapshots import GOOD
-from windvane.models.registry import SnapshotStore
+from windvane.models.registry import ModelRegistry
 from windvane.store import open_store
 
 TOKEN = "s3cret-token"
@@ -19,7 +19,7 @@ TOKEN = "s3cret-token"
 
 def registry_state(url: str) -> tuple:
     store = open_store(url)
-    models = SnapshotStore(store.client, {})  # type: ignore[attr-defined]
+    models = ModelRegistry(store.client, {})  # type: ignore[attr-defined]
     return tuple((m, models.history(m), models.active(m), models.audit(m)) for m in models.models())
 
 

@@ -25,7 +25,7 @@ from tests.test_replay import good_lines
 from tests.test_snapshots import GOOD
 from windvane.ingest.rejects import RejectsFile
 from windvane.ingest.replay import replay
-from windvane.models.registry import SnapshotStore
+from windvane.models.registry import ModelRegistry
 from windvane.models.scoring import Scorer
 from windvane.models.snapshot import parse_snapshot
 from windvane.serving.state import feature_shapes
@@ -43,7 +43,7 @@ def test_lookups_answer_in_time_when_the_store_freezes_or_stops(tmp_path: Path) 
         log.write_bytes(b"\n".join(good_lines(600)) + b"\n")
         with RejectsFile(tmp_path / "rejects.jsonl") as rejects:
             replay(engine, [str(log)], rejects)
-        registry = SnapshotStore(engine.store.client, feature_shapes(engine.plan))  # type: ignore[attr-defined]
+        registry = ModelRegistry(engine.store.client, feature_shapes(engine.plan))  # type: ignore[attr-defined]
         registry.publish("ctr", GOOD, "test", activate=True)
         scorer = Scorer(parse_snapshot(GOOD), frozenset({"imps_1h"}))
         request = {

@@ -219,10 +219,10 @@ def test_publish_split_score_and_rollback_over_http(
 
 
 def test_activation_reaches_every_worker_within_a_second(redis_server, loaded: Engine) -> None:
-    from windvane.models.registry import Arm, SnapshotStore
+    from windvane.models.registry import Arm, ModelRegistry
     from windvane.serving.state import feature_shapes
 
-    registry = SnapshotStore(loaded.store.client, feature_shapes(loaded.plan))  # type: ignore[attr-defined]
+    registry = ModelRegistry(loaded.store.client, feature_shapes(loaded.plan))  # type: ignore[attr-defined]
     registry.publish("fleet", {**GOOD, "version": "a"}, "test", activate=True)
     registry.publish("fleet", {**GOOD, "version": "b"}, "test")
     with (

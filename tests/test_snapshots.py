@@ -10,7 +10,7 @@ import pytest
 from tests.conftest import FEATUREDEFS
 from windvane.definitions.plan import load_plan
 from windvane.errors import BadSnapshot, UnknownModel
-from windvane.models.registry import Arm, SnapshotStore
+from windvane.models.registry import Arm, ModelRegistry
 from windvane.models.scoring import Scorer, logistic
 from windvane.models.snapshot import parse_snapshot
 from windvane.serving.state import feature_shapes
@@ -37,9 +37,9 @@ GOOD = {
 }
 
 
-def registry(store_url: str) -> SnapshotStore:
+def registry(store_url: str) -> ModelRegistry:
     store = open_store(store_url)
-    return SnapshotStore(store.client, SHAPES, store_url)  # type: ignore[attr-defined]
+    return ModelRegistry(store.client, SHAPES, store_url)  # type: ignore[attr-defined]
 
 
 def variant(path: str, value: object) -> dict:

@@ -17,7 +17,7 @@ from typing import Any
 from windvane.cli.options import store_options
 from windvane.definitions.plan import load_plan
 from windvane.errors import UsageError
-from windvane.models.registry import Arm, SnapshotStore
+from windvane.models.registry import Arm, ModelRegistry
 from windvane.serving.state import feature_shapes
 from windvane.store import open_store
 from windvane.store.redis_store import RedisStateStore
@@ -53,12 +53,12 @@ def add_model_commands(commands: Any) -> None:
     lst.set_defaults(run=_models)
 
 
-def _registry(args: argparse.Namespace, with_features: bool) -> SnapshotStore:
+def _registry(args: argparse.Namespace, with_features: bool) -> ModelRegistry:
     store = open_store(args.store)
     if not isinstance(store, RedisStateStore):
         raise UsageError("the model registry needs a Redis-compatible store")
     features = feature_shapes(load_plan(args.defs)) if with_features else {}
-    return SnapshotStore(store.client, features, args.store)
+    return ModelRegistry(store.client, features, args.store)
 
 
 def _publish(args: argparse.Namespace) -> int:

@@ -21,7 +21,7 @@ from windvane.engine import Engine
 from windvane.errors import UsageError
 from windvane.ingest.rejects import RejectsFile
 from windvane.ingest.replay import replay
-from windvane.models.registry import SnapshotStore
+from windvane.models.registry import ModelRegistry
 from windvane.serving.app import create_asgi
 from windvane.serving.config import ENVIRONMENT_KEY, ServiceConfig, load_config
 from windvane.serving.state import feature_shapes
@@ -127,7 +127,7 @@ def _demo(args: argparse.Namespace) -> int:
     engine = Engine(plan, store)
     with RejectsFile(out / "rejects.jsonl") as rejects:
         stats = replay(engine, [str(log)], rejects)
-    registry = SnapshotStore(store.client, feature_shapes(plan), config.store)
+    registry = ModelRegistry(store.client, feature_shapes(plan), config.store)
     registry.publish(DEMO_MODEL, snapshot_path.read_bytes(), "windvane demo", activate=True)
     _print_sample_lookups(engine, demo_log.lookups[:3])
     request = _demo_request(demo_log.lookups)

@@ -25,7 +25,7 @@ KEY_OVERHEAD_BYTES = 80
 
 @dataclass
 class StoredState:
-    """One state at one scope: the hash field it lives in and the features reading it."""
+    """One state at one key_shape: the hash field it lives in and the features reading it."""
 
     field: str
     state: State
@@ -33,7 +33,7 @@ class StoredState:
 
 
 @dataclass
-class Scope:
+class KeyShape:
     """A kind of key, such as ``user`` or ``user+campaign``, and the state it holds."""
 
     fields: tuple[str, ...]
@@ -67,7 +67,7 @@ class Scope:
 class Updater:
     """What one event kind does to one stored state."""
 
-    scope: Scope
+    key_shape: KeyShape
     field: str
     state: State
     skip_restricted: bool
@@ -77,7 +77,7 @@ class Updater:
 class Plan:
     source: Path
     features: list[Feature]
-    scopes: list[Scope]
+    key_shapes: list[KeyShape]
     updaters: dict[str, list[Updater]]
     expire_margin_s: int
 
@@ -92,16 +92,17 @@ class Plan:
         """The plan as text, for ``windvane check``."""
         out = [
             f"windvane plan for {self.source}: {len(self.features)} features, "
-            f"{len(self.scopes)} keys, retention margin {format_duration(self.expire_margin_s)}",
+            f"{len(self.key_shapes)} keys, "
+            f"retention margin {format_duration(self.expire_margin_s)}",
             "",
             "keys",
         ]
-        for scope in self.scopes:
+        for key_shape in self.key_shapes:
             out.append(
-                f"  {scope.name:<16} kept {format_duration(scope.retention_s)} after its last"
-                f" event, ~{scope.max_bytes()} B at most per key"
+                f"  {key_shape.name:<16} kept {format_duration(key_shape.retention_s)} after"
+                f" its last event, ~{key_shape.max_bytes()} B at most per key"
             )
-            for stored in scope.states:
+            for stored in key_shape.states:
                 names = ", ".join(f.name for f in stored.features)
                 out.append(f"    field {stored.field:<5} {stored.state.describe()}  <- {names}")
                 note = stored.state.side_keys_note()
@@ -109,13 +110,13 @@ class Plan:
                     out.append(f"                {note}")
         out += ["", "events"]
         for kind in EVENT_KINDS:
-            targets = [f"{u.scope.name}.{u.field}" for u in self.updaters.get(kind, [])]
+            targets = [f"{u.key_shape.name}.{u.field}" for u in self.updaters.get(kind, [])]
             out.append(f"  {kind:<11} -> {', '.join(targets) if targets else '(nothing)'}")
         out += ["", "features"]
         for feature in self.features:
             where = "request" if feature.state is None else "+".join(feature.key_fields)
             out.append(f"  {feature.name:<18} {feature.kind:<16} {where:<14} {feature.describe()}")
-        restricted = [s.name for s in self.scopes if s.per_user]
+        restricted = [s.name for s in self.key_shapes if s.per_user]
         out += [
             "",
             "privacy: events with device.lmt=1 or coppa=1 leave no state under "
@@ -131,7 +132,7 @@ def compile_plan(definitions: DefinitionSet) -> Plan:
     context = BuildContext(str(definitions.directory), margin_s)
     problems: list[str] = []
     features: list[Feature] = []
-    scopes: dict[tuple[str, ...], Scope] = {}
+    key_shapes: dict[tuple[str, ...], KeyShape] = {}
     for definition in definitions.definitions:
         options = definition.options
         label = f"{definition.path}: feature {options.name!r}"
@@ -146,22 +147,22 @@ def compile_plan(definitions: DefinitionSet) -> Plan:
             continue
         features.append(feature)
         if feature.state is not None:
-            scope = scopes.get(feature.key_fields)
-            if scope is None:
-                scope = scopes[feature.key_fields] = Scope(feature.key_fields, margin_s)
-            _place(scope, feature, feature.state)
+            key_shape = key_shapes.get(feature.key_fields)
+            if key_shape is None:
+                key_shape = key_shapes[feature.key_fields] = KeyShape(feature.key_fields, margin_s)
+            _place(key_shape, feature, feature.state)
     if problems:
         raise DefinitionError(problems)
     updaters: dict[str, list[Updater]] = {}
-    for scope in scopes.values():
-        scope.ttl_ms = scope.retention_s * 1000
-        for stored in scope.states:
-            skip = scope.per_user or stored.state.identifies_user
+    for key_shape in key_shapes.values():
+        key_shape.ttl_ms = key_shape.retention_s * 1000
+        for stored in key_shape.states:
+            skip = key_shape.per_user or stored.state.identifies_user
             for kind in sorted(stored.state.events):
                 updaters.setdefault(kind, []).append(
-                    Updater(scope, stored.field, stored.state, skip)
+                    Updater(key_shape, stored.field, stored.state, skip)
                 )
-    return Plan(definitions.directory, features, list(scopes.values()), updaters, margin_s)
+    return Plan(definitions.directory, features, list(key_shapes.values()), updaters, margin_s)
 
 
 def load_plan(directory: str | Path) -> Plan:
@@ -182,20 +183,20 @@ def _parse_key(text: str) -> tuple[str, ...]:
     return parts
 
 
-def _place(scope: Scope, feature: Feature, state: State) -> None:
+def _place(key_shape: KeyShape, feature: Feature, state: State) -> None:
     """Share a stored field with an equal state, or give the state a new field id.
 
     Equal signatures mean equal layout and update, so the feature keeps its own state
     object for reading while the first one of the signature does the updating.
     """
-    for stored in scope.states:
+    for stored in key_shape.states:
         if stored.state.signature == state.signature:
             stored.features.append(feature)
             return
-    taken = {s.field for s in scope.states}
+    taken = {s.field for s in key_shape.states}
     length = 3
-    field_id = State.field_id(scope.name, state.signature, length)
+    field_id = State.field_id(key_shape.name, state.signature, length)
     while field_id in taken:
         length += 1
-        field_id = State.field_id(scope.name, state.signature, length)
-    scope.states.append(StoredState(field_id, state, [feature]))
+        field_id = State.field_id(key_shape.name, state.signature, length)
+    key_shape.states.append(StoredState(field_id, state, [feature]))

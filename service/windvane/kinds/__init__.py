@@ -3,20 +3,20 @@
 from __future__ import annotations
 
 from windvane.kinds.base import FeatureKind, State
-from windvane.kinds.decayed_rate import DecayedRate
-from windvane.kinds.distinct_count import DistinctCount
-from windvane.kinds.inflow_rate import InflowRate
-from windvane.kinds.local_clock import LocalClock
-from windvane.kinds.recency import Recency
-from windvane.kinds.screen_fraction import ScreenFraction
-from windvane.kinds.session import Session
-from windvane.kinds.window_count import WindowCount
+from windvane.kinds.decayed_rate import DecayedRateKind
+from windvane.kinds.distinct_count import DistinctCountKind
+from windvane.kinds.inflow_rate import InflowRateKind
+from windvane.kinds.local_clock import LocalClockKind
+from windvane.kinds.recency import RecencyKind
+from windvane.kinds.screen_fraction import ScreenFractionKind
+from windvane.kinds.session import SessionKind
+from windvane.kinds.window_count import WindowCountKind
 
 KINDS: dict[str, type[FeatureKind]] = {
     kind.name: kind
     for kind in (
-        Session, LocalClock, ScreenFraction, WindowCount, Recency, DecayedRate, InflowRate,
-        DistinctCount,
+        SessionKind, LocalClockKind, ScreenFractionKind, WindowCountKind, RecencyKind,
+        DecayedRateKind, InflowRateKind, DistinctCountKind,
     )
 }  # fmt: skip
 

@@ -56,7 +56,7 @@ return string.format('%.0f', v[1]) .. ':' .. table.concat(c, ',', 1, last)
 """
 
 
-class BucketRing(State):
+class BucketRingState(State):
     """Counts of ``events`` per ``granularity_s`` bucket over ``span`` buckets."""
 
     LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {
@@ -71,7 +71,9 @@ class BucketRing(State):
         self.retention_s = granularity_s * span
 
     @classmethod
-    def for_window(cls, events: tuple[str, ...], window_s: int, granularity_s: int) -> BucketRing:
+    def for_window(
+        cls, events: tuple[str, ...], window_s: int, granularity_s: int
+    ) -> BucketRingState:
         """The ring for a window definition, or a FieldProblem naming the bad field."""
         return cls(check_events(events), granularity_s, check_window(window_s, granularity_s))
 

@@ -68,7 +68,7 @@ class DecayedRateOptions(KeyedOptions):
     keep: DurationS | None = None
 
 
-class DecayedPair(State):
+class DecayedRateState(State):
     LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {
         "d": LuaHandler(4, DECODE_THREE_NUMBERS, _APPLY, _ENCODE)
     }
@@ -116,7 +116,7 @@ class DecayedPair(State):
 class DecayedRateFeature(Feature):
     kind = "decayed_rate"
 
-    def __init__(self, options: DecayedRateOptions, state: DecayedPair) -> None:
+    def __init__(self, options: DecayedRateOptions, state: DecayedRateState) -> None:
         super().__init__(options)
         self.state = state
         self.pair = state
@@ -131,10 +131,10 @@ class DecayedRateFeature(Feature):
         return f"(alpha + S) / (alpha + beta + N), prior mean {self.alpha / self.alpha_beta:.4g}"
 
 
-class DecayedRate(FeatureKind):
+class DecayedRateKind(FeatureKind):
     name = "decayed_rate"
     options_model = DecayedRateOptions
-    states = (DecayedPair,)
+    states = (DecayedRateState,)
 
     @classmethod
     def build(cls, options: DecayedRateOptions, context: BuildContext) -> DecayedRateFeature:
@@ -147,5 +147,5 @@ class DecayedRate(FeatureKind):
                 "trials", f"{', '.join(sorted(overlap))} cannot be both a success and a trial"
             )
         keep_s = options.keep if options.keep is not None else 10 * options.half_life
-        state = DecayedPair(successes, frozenset(options.trials), options.half_life, keep_s)
+        state = DecayedRateState(successes, frozenset(options.trials), options.half_life, keep_s)
         return DecayedRateFeature(options, state)

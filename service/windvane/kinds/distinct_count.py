@@ -48,7 +48,7 @@ class DistinctCountOptions(KeyedOptions):
     granularity: DurationS
 
 
-class DistinctBuckets(State):
+class DistinctCountState(State):
     in_hash = False
 
     def __init__(
@@ -105,7 +105,7 @@ class DistinctBuckets(State):
 class DistinctCountFeature(Feature):
     kind = "distinct_count"
 
-    def __init__(self, options: DistinctCountOptions, state: DistinctBuckets) -> None:
+    def __init__(self, options: DistinctCountOptions, state: DistinctCountState) -> None:
         super().__init__(options)
         self.state = state
         self.of = options.of
@@ -117,10 +117,10 @@ class DistinctCountFeature(Feature):
         return f"approximate distinct {self.of} (HyperLogLog, 0.81% standard error)"
 
 
-class DistinctCount(FeatureKind):
+class DistinctCountKind(FeatureKind):
     name = "distinct_count"
     options_model = DistinctCountOptions
-    states = (DistinctBuckets,)
+    states = (DistinctCountState,)
 
     @classmethod
     def build(cls, options: DistinctCountOptions, context: BuildContext) -> DistinctCountFeature:
@@ -129,7 +129,7 @@ class DistinctCount(FeatureKind):
                 "of", f"{options.of!r} is not an event field (known: {', '.join(EVENT_FIELDS)})"
             )
         span = check_window(options.window, options.granularity)
-        state = DistinctBuckets(
+        state = DistinctCountState(
             check_events(options.events), options.of, options.granularity, span,
             context.expire_margin_s,
         )  # fmt: skip

@@ -16,7 +16,7 @@ from windvane.kinds.base import (
     FeatureKind,
     KeyedOptions,
 )
-from windvane.kinds.bucket_ring import BucketRing
+from windvane.kinds.bucket_ring import BucketRingState
 
 
 class InflowRateOptions(KeyedOptions):
@@ -28,7 +28,7 @@ class InflowRateOptions(KeyedOptions):
 class InflowRateFeature(Feature):
     kind = "inflow_rate"
 
-    def __init__(self, options: InflowRateOptions, state: BucketRing) -> None:
+    def __init__(self, options: InflowRateOptions, state: BucketRingState) -> None:
         super().__init__(options)
         self.state = state
         self.ring = state
@@ -41,12 +41,12 @@ class InflowRateFeature(Feature):
         return f"events per minute over trailing {format_duration(round(self.minutes * 60))}"
 
 
-class InflowRate(FeatureKind):
+class InflowRateKind(FeatureKind):
     name = "inflow_rate"
     options_model = InflowRateOptions
-    states = (BucketRing,)
+    states = (BucketRingState,)
 
     @classmethod
     def build(cls, options: InflowRateOptions, context: BuildContext) -> InflowRateFeature:
-        ring = BucketRing.for_window(options.events, options.window, options.granularity)
+        ring = BucketRingState.for_window(options.events, options.window, options.granularity)
         return InflowRateFeature(options, ring)

@@ -37,7 +37,7 @@ class LocalClockFeature(Feature):
         return "local hour of day" if self.index == 0 else "local day of week (0 = Monday)"
 
 
-class LocalClock(FeatureKind):
+class LocalClockKind(FeatureKind):
     name = "local_clock"
     options_model = LocalClockOptions
 

@@ -45,7 +45,7 @@ class RecencyOptions(KeyedOptions):
     keep: DurationS
 
 
-class LatestTime(State):
+class RecencyState(State):
     LUA_HANDLERS: ClassVar[dict[str, LuaHandler]] = {"m": LuaHandler(2, _DECODE, _APPLY, _ENCODE)}
 
     def __init__(self, events: frozenset[str], keep_s: int) -> None:
@@ -69,7 +69,7 @@ class LatestTime(State):
 class RecencyFeature(Feature):
     kind = "recency"
 
-    def __init__(self, options: RecencyOptions, state: LatestTime) -> None:
+    def __init__(self, options: RecencyOptions, state: RecencyState) -> None:
         super().__init__(options)
         self.state = state
         self.keep_ms = state.retention_s * 1000
@@ -86,11 +86,11 @@ class RecencyFeature(Feature):
         return f"seconds since latest, remembered {format_duration(self.keep_ms // 1000)}"
 
 
-class Recency(FeatureKind):
+class RecencyKind(FeatureKind):
     name = "recency"
     options_model = RecencyOptions
-    states = (LatestTime,)
+    states = (RecencyState,)
 
     @classmethod
     def build(cls, options: RecencyOptions, context: BuildContext) -> RecencyFeature:
-        return RecencyFeature(options, LatestTime(check_events(options.events), options.keep))
+        return RecencyFeature(options, RecencyState(check_events(options.events), options.keep))

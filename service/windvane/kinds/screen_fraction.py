@@ -46,7 +46,7 @@ class ScreenFractionFeature(Feature):
         return f"slot area over screen area (device table: {len(self.table)} models)"
 
 
-class ScreenFraction(FeatureKind):
+class ScreenFractionKind(FeatureKind):
     name = "screen_fraction"
     options_model = ScreenFractionOptions
 

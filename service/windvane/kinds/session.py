@@ -107,7 +107,7 @@ class SessionFeature(Feature):
         return f"session {self.value}"
 
 
-class Session(FeatureKind):
+class SessionKind(FeatureKind):
     name = "session"
     options_model = SessionOptions
     states = (SessionState,)

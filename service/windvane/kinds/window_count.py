@@ -17,7 +17,7 @@ from windvane.kinds.base import (
     FeatureKind,
     KeyedOptions,
 )
-from windvane.kinds.bucket_ring import BucketRing
+from windvane.kinds.bucket_ring import BucketRingState
 
 
 class WindowCountOptions(KeyedOptions):
@@ -29,7 +29,7 @@ class WindowCountOptions(KeyedOptions):
 class WindowCountFeature(Feature):
     kind = "window_count"
 
-    def __init__(self, options: WindowCountOptions, state: BucketRing) -> None:
+    def __init__(self, options: WindowCountOptions, state: BucketRingState) -> None:
         super().__init__(options)
         self.state = state
         self.ring = state
@@ -42,12 +42,12 @@ class WindowCountFeature(Feature):
         return f"count in trailing {format_duration(self.window_s)}"
 
 
-class WindowCount(FeatureKind):
+class WindowCountKind(FeatureKind):
     name = "window_count"
     options_model = WindowCountOptions
-    states = (BucketRing,)
+    states = (BucketRingState,)
 
     @classmethod
     def build(cls, options: WindowCountOptions, context: BuildContext) -> WindowCountFeature:
-        ring = BucketRing.for_window(options.events, options.window, options.granularity)
+        ring = BucketRingState.for_window(options.events, options.window, options.granularity)
         return WindowCountFeature(options, ring)

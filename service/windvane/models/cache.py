@@ -13,7 +13,7 @@ import logging
 from dataclasses import dataclass
 
 from windvane.errors import UnknownModel, WindvaneError
-from windvane.models.registry import ActiveSplit, SnapshotStore
+from windvane.models.registry import ActiveSplit, ModelRegistry
 from windvane.models.scoring import Scorer
 from windvane.models.traffic_split import choose_arm
 
@@ -32,7 +32,7 @@ class ActiveModel:
 
 class ModelCache:
     def __init__(
-        self, registry: SnapshotStore, per_campaign: frozenset[str], refresh_s: float = 0.25
+        self, registry: ModelRegistry, per_campaign: frozenset[str], refresh_s: float = 0.25
     ) -> None:
         self.registry = registry
         self.per_campaign = per_campaign

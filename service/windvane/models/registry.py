@@ -103,7 +103,7 @@ class ActiveSplit:
         }
 
 
-class SnapshotStore:
+class ModelRegistry:
     """Publishes, activates and rolls back model versions; validates before it writes."""
 
     def __init__(self, client: redis.Redis, features: dict[str, str], url: str = "") -> None:

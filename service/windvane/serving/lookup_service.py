@@ -18,7 +18,7 @@ from windvane.inputs.lookup_request import LookupRequest
 from windvane.models.cache import ModelCache
 from windvane.serving.reply_cache import ReplyCache
 from windvane.state.lookup_reader import MISSING, LookupReader
-from windvane.store.async_store import AsyncStateReader
+from windvane.store.async_store import AsyncStateStore
 
 DEFAULT_DEADLINE_MS = 5.0
 MAX_DEADLINE_MS = 10_000.0
@@ -36,7 +36,7 @@ class LookupService:
     def __init__(
         self,
         reader: LookupReader,
-        store: AsyncStateReader,
+        store: AsyncStateStore,
         cache: ReplyCache,
         models: ModelCache,
         deadline_ms: float = DEFAULT_DEADLINE_MS,

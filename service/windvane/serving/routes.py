@@ -293,7 +293,7 @@ async def health(request: Request) -> Response:
     state = _state(request)
     try:
         async with asyncio.timeout(0.5):
-            reachable = await state.reader.ping()
+            reachable = await state.async_store.ping()
     except (TimeoutError, StoreError):
         reachable = False
     body = {

@@ -19,13 +19,13 @@ from windvane.ingest.replay import replay
 from windvane.keys import KeyLayout
 from windvane.kinds import local_time
 from windvane.models.cache import ModelCache
-from windvane.models.registry import SnapshotStore
+from windvane.models.registry import ModelRegistry
 from windvane.serving.config import ServiceConfig
 from windvane.serving.lookup_service import LookupService
 from windvane.serving.reply_cache import ReplyCache
 from windvane.state.lookup_reader import LookupReader
 from windvane.store import open_store
-from windvane.store.async_store import AsyncStateReader
+from windvane.store.async_store import AsyncStateStore
 from windvane.store.generations import Generations
 from windvane.store.redis_store import RedisStateStore
 
@@ -44,8 +44,8 @@ class ServiceState:
     config: ServiceConfig
     plan: Plan
     engine: Engine
-    reader: AsyncStateReader
-    registry: SnapshotStore
+    async_store: AsyncStateStore
+    registry: ModelRegistry
     models: ModelCache
     lookups: LookupService
     generations: Generations
@@ -73,13 +73,13 @@ class ServiceState:
                 config.rejects,
             )  # fmt: skip
         shapes = feature_shapes(plan)
-        registry = SnapshotStore(store.client, shapes, config.store)
+        registry = ModelRegistry(store.client, shapes, config.store)
         per_campaign = frozenset(n for n, shape in shapes.items() if shape == "per_campaign")
         models = ModelCache(registry, per_campaign, config.refresh_ms / 1000)
-        reader = AsyncStateReader.open(config.store)
+        async_store = AsyncStateStore.open(config.store)
         lookups = LookupService(
             engine.reader,
-            reader,
+            async_store,
             ReplyCache(config.cache_ms / 1000),
             models,
             config.deadline_ms,
@@ -87,7 +87,9 @@ class ServiceState:
         )
         await asyncio.to_thread(local_time.warm_up)
         stream = await asyncio.to_thread(EventStream.open, config) if config.stream_url else None
-        state = cls(config, plan, engine, reader, registry, models, lookups, generations, stream)
+        state = cls(
+            config, plan, engine, async_store, registry, models, lookups, generations, stream
+        )
         try:
             await state.refresh_models()
         except Exception as exc:  # the refresher keeps trying; serve without models meanwhile
@@ -125,7 +127,7 @@ class ServiceState:
         for task in self.tasks:
             task.cancel()
         await asyncio.gather(*self.tasks, return_exceptions=True)
-        await self.reader.close()
+        await self.async_store.close()
         if self.stream is not None:
             await self.stream.close()
         self.engine.close()

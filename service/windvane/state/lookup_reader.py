@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from windvane.definitions.plan import Plan, Scope
+from windvane.definitions.plan import KeyShape, Plan
 from windvane.inputs.lookup_request import LookupRequest
 from windvane.keys import KeyLayout
 from windvane.kinds.base import State
@@ -36,30 +36,30 @@ class PreparedLookup:
         self.commands: list[tuple[Any, ...]] = []
         # Per command: True when it reads no per-user state, so a short-lived cache may answer.
         self.cacheable: list[bool] = []
-        # (scope, campaign or None, index of the HGETALL or -1, {field: index of its command})
-        self.reads: list[tuple[Scope, str | None, int, dict[str, int]]] = []
+        # (key_shape, campaign or None, index of the HGETALL or -1, {field: index of its command})
+        self.reads: list[tuple[KeyShape, str | None, int, dict[str, int]]] = []
 
 
-class _ScopeRead:
+class _KeyShapeRead:
     """What a lookup reads for one kind of key, worked out once from the plan."""
 
-    __slots__ = ("fields", "has_hash", "needs_app", "per_campaign", "per_user", "scope", "side")
+    __slots__ = ("fields", "has_hash", "key_shape", "needs_app", "per_campaign", "per_user", "side")
 
-    def __init__(self, scope: Scope) -> None:
-        self.scope = scope
-        self.fields = scope.fields
-        self.per_user = scope.per_user
-        self.per_campaign = scope.per_campaign
-        self.needs_app = "app" in scope.fields
-        self.has_hash = any(s.state.in_hash for s in scope.states)
-        self.side = [s for s in scope.states if not s.state.in_hash]
+    def __init__(self, key_shape: KeyShape) -> None:
+        self.key_shape = key_shape
+        self.fields = key_shape.fields
+        self.per_user = key_shape.per_user
+        self.per_campaign = key_shape.per_campaign
+        self.needs_app = "app" in key_shape.fields
+        self.has_hash = any(s.state.in_hash for s in key_shape.states)
+        self.side = [s for s in key_shape.states if not s.state.in_hash]
 
 
 class LookupReader:
     def __init__(self, plan: Plan, layout: KeyLayout) -> None:
         self.plan = plan
         self.layout = layout
-        self._scopes = [_ScopeRead(scope) for scope in plan.scopes]
+        self._scopes = [_KeyShapeRead(key_shape) for key_shape in plan.key_shapes]
         # The answer's shape, worked out once: request-time features, and the names of
         # the shared and per-candidate ones in plan order, stored ones null until read.
         self._request_time = [f for f in plan.features if f.state is None]
@@ -67,13 +67,13 @@ class LookupReader:
         self._stored_per_campaign = [
             f.name for f in plan.features if f.state is not None and "campaign" in f.key_fields
         ]
-        # Per scope: (hash field as bytes, field name, (feature name, read) it feeds).
+        # Per key_shape: (hash field as bytes, field name, (feature name, read) it feeds).
         self._readers = {
-            id(scope): [
+            id(key_shape): [
                 (stored.field.encode(), stored.field, [(f.name, f.read) for f in stored.features])
-                for stored in scope.states
+                for stored in key_shape.states
             ]
-            for scope in plan.scopes
+            for key_shape in plan.key_shapes
         }
         # Side-key commands (a distinct count's bucket keys) change once per bucket.
         self._side_commands: dict[tuple[str, str, int], tuple[Any, ...]] = {}
@@ -105,7 +105,7 @@ class LookupReader:
                         self._side_command(stored.state, key, stored.field, lookup.t_ms)
                     )
                     cacheable.append(shared)
-                reads.append((read.scope, campaign, index, side))
+                reads.append((read.key_shape, campaign, index, side))
         return lookup
 
     def _side_command(self, state: State, key: str, field: str, t_ms: int) -> tuple[Any, ...]:
@@ -133,10 +133,10 @@ class LookupReader:
         missing = replies is None
         if replies is not None:
             readers = self._readers
-            for scope, campaign, index, side in lookup.reads:
+            for key_shape, campaign, index, side in lookup.reads:
                 stored_hash = replies[index] if index >= 0 else _EMPTY
                 target = shared if campaign is None else per_campaign[campaign]
-                for field_bytes, field, features in readers[id(scope)]:
+                for field_bytes, field, features in readers[id(key_shape)]:
                     if side and field in side:
                         raw = replies[side[field]]
                     elif stored_hash is MISSING:

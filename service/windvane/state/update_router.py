@@ -12,7 +12,7 @@ from __future__ import annotations
 from collections.abc import Callable, Iterable
 from operator import attrgetter
 
-from windvane.definitions.plan import Plan, Scope, Updater
+from windvane.definitions.plan import KeyShape, Plan, Updater
 from windvane.inputs.events import Event
 from windvane.keys import KEY_FIELD_LETTERS, KeyLayout, watermark_field
 from windvane.kinds.batch_writes import BatchWrites
@@ -61,17 +61,19 @@ class UpdateRouter:
         self.layout = layout
         self._routes: dict[str, list[tuple[KeyOf, bool, int, list[tuple[Update, str, bool]]]]] = {}
         for kind, updaters in plan.updaters.items():
-            grouped: dict[int, tuple[Scope, list[Updater]]] = {}
+            grouped: dict[int, tuple[KeyShape, list[Updater]]] = {}
             for updater in updaters:
-                grouped.setdefault(id(updater.scope), (updater.scope, []))[1].append(updater)
+                grouped.setdefault(id(updater.key_shape), (updater.key_shape, []))[1].append(
+                    updater
+                )
             self._routes[kind] = [
                 (
-                    key_builder(layout, scope.fields),
-                    scope.per_user,
-                    scope.ttl_ms,
-                    [(u.state.update, u.field, u.skip_restricted) for u in scope_updaters],
+                    key_builder(layout, key_shape.fields),
+                    key_shape.per_user,
+                    key_shape.ttl_ms,
+                    [(u.state.update, u.field, u.skip_restricted) for u in shape_updaters],
                 )
-                for scope, scope_updaters in grouped.values()
+                for key_shape, shape_updaters in grouped.values()
             ]
 
     def add(self, event: Event, writes: BatchWrites) -> None:

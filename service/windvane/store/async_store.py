@@ -21,13 +21,13 @@ from windvane.store import memory_server
 from windvane.store.redis_errors import store_errors
 
 
-class AsyncStateReader:
+class AsyncStateStore:
     def __init__(self, client: redis.asyncio.Redis, url: str) -> None:
         self.client = client
         self.url = url
 
     @classmethod
-    def open(cls, url: str, timeout_s: float = 1.0) -> AsyncStateReader:
+    def open(cls, url: str, timeout_s: float = 1.0) -> AsyncStateStore:
         scheme = urlsplit(url).scheme
         if scheme == "memory":
             name = url[len("memory://") :].strip("/") or "default"
