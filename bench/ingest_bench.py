@@ -22,7 +22,7 @@ from bench.common import ROOT, Context, Measure, Result, redis_cpu_s
 from tests.redis_server import RedisServer
 from windvane.ingest.event_stream import append, shard_count, shard_of, shard_of_key
 from windvane.inputs.events import parse_event_line
-from windvane.keys import ingest_status_key, stream_key
+from windvane.keys import DEFAULT_GENERATION, consumer_group, ingest_status_key, stream_key
 from windvane_demo.generate import build_log
 
 SHARDS = 4
@@ -104,7 +104,7 @@ def worker_rate(
         entry_bytes.append(stream_bytes / total)
     worker = start_worker(url, f"bench-{uuid.uuid4().hex[:6]}")
     try:
-        group = "gen-main"
+        group = consumer_group(DEFAULT_GENERATION)
         # Timed from the worker's first read (the group's entries-read moves off 0), so
         # the first step counts too and start-up does not.
         while _groups_missing(client, group) or _entries_read(client, group) == 0:

@@ -13,6 +13,7 @@ Layout (``<gen>`` is the state generation, so a rebuild can sit beside live stat
     wv:dead                                 stream: entries that could not be applied, with reasons
     wv:lease:<group>:{s<n>}                 string: which worker of a consumer group owns shard n
     wv:ingest:status:<worker>               string: a worker's last status line, as JSON
+    wv:ingest:workers                       set: names of workers that reported a status
     wv:generation                           string: the generation lookups read
     wv:generations                          hash: generation -> when created, by whom, from what
     wv:genstats:{g:<name>}                  hash: events applied to a generation and their times
@@ -53,13 +54,19 @@ class KeyLayout:
         self.generation = check_generation(generation)
         self.prefix = f"{KEY_PREFIX}:{generation}:"
 
+    def state_key_format(self, fields: tuple[str, ...]) -> str:
+        """The name of a state hash as a ``str.format`` template, one ``{}`` per field value.
+
+        ``wv:main:{u:{}}:c:{}`` (braces of the hash tag doubled) for ``user+campaign``.
+        The update path and the read path both fill it in, so a key is named one way.
+        """
+        letter = KEY_FIELD_LETTERS
+        head = f"{self.prefix}{{{{{letter[fields[0]]}:{{}}}}}}"
+        return ":".join([head, *(f"{letter[name]}:{{}}" for name in fields[1:])])
+
     def state_key(self, fields: tuple[str, ...], values: tuple[str, ...]) -> str:
         """The hash holding one key's state, such as the state of user X for campaign Y."""
-        letter = KEY_FIELD_LETTERS
-        parts = [f"{self.prefix}{{{letter[fields[0]]}:{values[0]}}}"]
-        for name, value in zip(fields[1:], values[1:], strict=True):
-            parts.append(f"{letter[name]}:{value}")
-        return ":".join(parts)
+        return self.state_key_format(fields).format(*values)
 
     @staticmethod
     def bucket_key(state_key: str, field_id: str, bucket: int) -> str:
@@ -88,6 +95,14 @@ def stream_key(shard: int) -> str:
 
 def lease_key(group: str, shard: int) -> str:
     return f"{KEY_PREFIX}:lease:{group}:{{s{shard}}}"
+
+
+INGEST_WORKERS_KEY = f"{KEY_PREFIX}:ingest:workers"
+
+
+def consumer_group(generation: str) -> str:
+    """The stream consumer group whose workers apply the stream to ``generation``."""
+    return f"gen-{generation}"
 
 
 def ingest_status_key(worker: str) -> str:

@@ -21,7 +21,7 @@ from windvane.ingest.logfile import read_lines
 from windvane.ingest.rejects import RejectsFile
 from windvane.ingest.worker import IngestSettings, IngestWorker
 from windvane.inputs.events import parse_event_line
-from windvane.keys import SHARD_COUNT_KEY, check_generation, stream_key
+from windvane.keys import SHARD_COUNT_KEY, check_generation, consumer_group, stream_key
 from windvane.store import open_store
 from windvane.store.generations import Generations
 
@@ -204,7 +204,7 @@ def _destroy_groups(client: redis.Redis, generation: str) -> None:
     shards = int(client.get(SHARD_COUNT_KEY) or 0)
     for number in range(shards):
         with contextlib.suppress(redis.exceptions.ResponseError):
-            client.xgroup_destroy(stream_key(number), f"gen-{generation}")
+            client.xgroup_destroy(stream_key(number), consumer_group(generation))
 
 
 def _iso(ts: float | None) -> str:

@@ -21,6 +21,7 @@ from windvane.engine import Engine
 from windvane.errors import UsageError
 from windvane.ingest.rejects import RejectsFile
 from windvane.ingest.replay import replay
+from windvane.inputs.deadline import DEFAULT_DEADLINE_MS
 from windvane.models.registry import ModelRegistry
 from windvane.serving.app import create_asgi
 from windvane.serving.config import ENVIRONMENT_KEY, ServiceConfig, load_config
@@ -41,7 +42,11 @@ def add_service_commands(commands: Any) -> None:
     serve.add_argument("--port", type=int, help="port (default 8700)")
     serve.add_argument("--workers", type=int, help="processes (default 1; needs redis://)")
     serve.add_argument("--replay", nargs="+", metavar="LOG", help="load logs into memory:// first")
-    serve.add_argument("--deadline-ms", type=float, help="default lookup deadline (default 5)")
+    serve.add_argument(
+        "--deadline-ms",
+        type=float,
+        help=f"default lookup deadline (default {DEFAULT_DEADLINE_MS:g})",
+    )
     serve.add_argument("--default-model", metavar="NAME", help="model for lookups naming none")
     serve.add_argument("--cache-ms", type=float, help="max age of cached app state (default 500)")
     serve.add_argument("--read-only", action="store_true", default=None, help="no write endpoints")

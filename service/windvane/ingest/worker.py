@@ -36,10 +36,16 @@ from windvane.errors import BadEvent, StoreError
 from windvane.ingest.event_stream import ENTRY_FIELD, shard_count
 from windvane.ingest.freshness import FreshnessWindow
 from windvane.inputs.events import Event, parse_event_line
-from windvane.keys import DEAD_LETTER_KEY, KEY_PREFIX, ingest_status_key, lease_key, stream_key
+from windvane.keys import (
+    DEAD_LETTER_KEY,
+    INGEST_WORKERS_KEY,
+    consumer_group,
+    ingest_status_key,
+    lease_key,
+    stream_key,
+)
 from windvane.store.generations import Generations
 
-WORKERS_KEY = f"{KEY_PREFIX}:ingest:workers"
 _OUTAGES = (redis.exceptions.ConnectionError, redis.exceptions.TimeoutError)
 DEAD_LETTER_MAXLEN = 100_000
 # Entries appended this long before a top-up's start time are read too, for clock skew.
@@ -97,7 +103,7 @@ class IngestWorker:
         self.out = out or sys.stderr
         self.stream_url = stream_url or "the stream"
         self.generation = engine.layout.generation
-        self.group = f"gen-{self.generation}"
+        self.group = consumer_group(self.generation)
         self.name = settings.name
         self.generations = Generations(engine.store.client)  # type: ignore[attr-defined]
         self.window = FreshnessWindow()
@@ -401,7 +407,7 @@ class IngestWorker:
             **numbers,
         }
         self.stream.set(ingest_status_key(self.name), orjson.dumps(status), px=30_000)
-        self.stream.sadd(WORKERS_KEY, self.name)
+        self.stream.sadd(INGEST_WORKERS_KEY, self.name)
         self._say(
             f"ingest {self.name} gen={self.generation} shards={_shards(status['shards'])}: "
             f"{numbers['events_per_s']:,.0f} events/s, lag from event "
@@ -419,13 +425,13 @@ class IngestWorker:
 
 def read_statuses(client: redis.Redis) -> list[dict[str, Any]]:
     """The last status of every live worker (entries of stopped workers expire)."""
-    names = sorted(_text(n) for n in client.smembers(WORKERS_KEY))
+    names = sorted(_text(n) for n in client.smembers(INGEST_WORKERS_KEY))
     if not names:
         return []
     raws = client.mget([ingest_status_key(n) for n in names])
     gone = [n for n, raw in zip(names, raws, strict=True) if raw is None]
     if gone:
-        client.srem(WORKERS_KEY, *gone)
+        client.srem(INGEST_WORKERS_KEY, *gone)
     return [orjson.loads(raw) for raw in raws if raw is not None]
 
 

@@ -10,7 +10,7 @@ pass by msgspec against the ``Event`` type; only the time needs Python afterward
 
 from __future__ import annotations
 
-from typing import Annotated, Literal
+from typing import Annotated, Literal, get_args
 
 import msgspec
 from msgspec import Meta, Struct
@@ -29,7 +29,9 @@ from windvane.inputs.rtb_objects import (
     validation_problem,
 )
 
-EVENT_KINDS = ("request", "bid", "win", "impression", "click")
+# The event kinds, spelled once: the type checks them while decoding, the tuple lists them.
+EventKind = Literal["request", "bid", "win", "impression", "click"]
+EVENT_KINDS: tuple[str, ...] = get_args(EventKind)
 
 # Fields a definition may name (as a key part or a counted value), with their dotted paths.
 EVENT_FIELDS = (
@@ -46,7 +48,7 @@ _ID_FIELDS = ("id", "user", "app", "campaign", "creative")
 class Event(Struct):
     """One validated event; ``ts_s`` is the event time in seconds, ``ts_ms`` in milliseconds."""
 
-    kind: Literal["request", "bid", "win", "impression", "click"]
+    kind: EventKind
     ts_s: float | str = msgspec.field(name="ts")
     id: Identifier
     user: Identifier | None = None

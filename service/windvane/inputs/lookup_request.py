@@ -14,6 +14,7 @@ import msgspec
 from msgspec import Meta, Struct
 
 from windvane.errors import BadRequest
+from windvane.inputs.deadline import DEADLINE_HEADER, DEFAULT_DEADLINE_MS, MAX_DEADLINE_MS
 from windvane.inputs.event_time import parse_time_s
 from windvane.inputs.rtb_objects import (
     ID_REASON,
@@ -32,14 +33,21 @@ MAX_CAMPAIGNS = 500
 
 
 class LookupRequest(Struct):
-    user: Identifier | None = None
-    app: Identifier | None = None
-    ts_s: float | str | None = msgspec.field(default=None, name="ts")
+    """A lookup: who, when, on what device and slot, for which candidate campaigns."""
+
+    user: Annotated[Identifier | None, Meta(description="hashed device or user id")] = None
+    app: Annotated[Identifier | None, Meta(description="app bundle id")] = None
+    ts_s: Annotated[
+        float | str | None, Meta(description="epoch seconds or RFC 3339 with offset; default now")
+    ] = msgspec.field(default=None, name="ts")
     device: Device | None = None
     geo: Geo | None = None
     slot: Slot | None = None
-    campaigns: Annotated[tuple[Identifier, ...], Meta(max_length=MAX_CAMPAIGNS)] = ()
-    coppa: Flag | None = False
+    campaigns: Annotated[
+        tuple[Identifier, ...],
+        Meta(max_length=MAX_CAMPAIGNS, description="candidate campaigns, each valued apart"),
+    ] = ()
+    coppa: Annotated[Flag | None, Meta(description="1: COPPA applies, no per-user state")] = False
 
     def __post_init__(self) -> None:
         if self.ts_s is None:
@@ -65,14 +73,23 @@ class LookupRequest(Struct):
         return bool(self.coppa) or (self.device is not None and bool(self.device.lmt))
 
 
-class LookupCall(LookupRequest):
+class LookupBody(LookupRequest):
     """A lookup as the HTTP API takes it: the request plus the model and the deadline."""
 
-    model: Annotated[str, Meta(min_length=1)] | None = None
-    deadline_ms: Annotated[float, Meta(gt=0, le=10_000)] | None = None
+    model: Annotated[
+        Annotated[str, Meta(min_length=1)] | None,
+        Meta(description="model to score with; default: the service's"),
+    ] = None
+    deadline_ms: Annotated[
+        Annotated[float, Meta(gt=0, le=MAX_DEADLINE_MS)] | None,
+        Meta(
+            description=f"answer within this many ms (default {DEFAULT_DEADLINE_MS:g}); "
+            f"or the {DEADLINE_HEADER} header"
+        ),
+    ] = None
 
 
-_DECODER = msgspec.json.Decoder(LookupCall)
+_DECODER = msgspec.json.Decoder(LookupBody)
 
 
 def parse_lookup_request(obj: Any) -> LookupRequest:
@@ -83,6 +100,6 @@ def parse_lookup_request(obj: Any) -> LookupRequest:
         raise BadRequest(*validation_problem(exc)) from None
 
 
-def decode_lookup_call(body: bytes) -> LookupCall:
+def decode_lookup_body(body: bytes) -> LookupBody:
     """Decode and validate a lookup body in one pass, or raise ``BadRequest``."""
     return decode_checked(_DECODER, body, BadRequest, "the body is not valid JSON")

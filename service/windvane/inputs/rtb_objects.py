@@ -39,13 +39,21 @@ Flag = Literal[0, 1] | bool
 
 
 class Device(Struct, omit_defaults=True):
-    ua: str | None = None
-    model: str | None = None
+    """OpenRTB 2.5 Device fields windvane reads."""
+
+    ua: Annotated[str | None, Meta(description="user agent")] = None
+    model: Annotated[
+        str | None, Meta(description="device model, looked up in the device table")
+    ] = None
     os: str | None = None
-    w: Positive | None = None
-    h: Positive | None = None
-    pxratio: Positive | None = None
-    lmt: Flag | None = False
+    w: Annotated[Positive | None, Meta(description="screen width, physical pixels")] = None
+    h: Annotated[Positive | None, Meta(description="screen height, physical pixels")] = None
+    pxratio: Annotated[
+        Positive | None, Meta(description="physical pixels per device-independent pixel")
+    ] = None
+    lmt: Annotated[
+        Flag | None, Meta(description="1: limit ad tracking, no per-user state is read")
+    ] = False
 
     def __post_init__(self) -> None:
         if type(self.lmt) is not bool:
@@ -53,10 +61,14 @@ class Device(Struct, omit_defaults=True):
 
 
 class Geo(Struct, omit_defaults=True):
-    country: str | None = None
+    """OpenRTB 2.5 Geo fields windvane reads, for the user's local time."""
+
+    country: Annotated[str | None, Meta(description="ISO 3166-1 alpha-3, e.g. DEU")] = None
     lat: Annotated[float, Meta(ge=-90, le=90)] | None = None
     lon: Annotated[float, Meta(ge=-180, le=180)] | None = None
-    utcoffset: Annotated[int, Meta(ge=-720, le=840)] | None = None
+    utcoffset: Annotated[
+        Annotated[int, Meta(ge=-720, le=840)] | None, Meta(description="minutes east of UTC")
+    ] = None
 
     def __post_init__(self) -> None:
         country = self.country
@@ -85,8 +97,10 @@ def check_ids(owner: object, names: tuple[str, ...], error: ErrorType) -> None:
 
 
 class Slot(Struct):
-    w: Positive
-    h: Positive
+    """The ad slot (OpenRTB 2.5 Banner w/h)."""
+
+    w: Annotated[Positive, Meta(description="creative width, device-independent pixels")]
+    h: Annotated[Positive, Meta(description="creative height, device-independent pixels")]
 
 
 def decode_checked(

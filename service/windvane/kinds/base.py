@@ -11,7 +11,7 @@ from __future__ import annotations
 import hashlib
 from abc import ABC, abstractmethod
 from dataclasses import dataclass
-from typing import Annotated, Any, ClassVar, Literal
+from typing import Annotated, Any, ClassVar
 
 from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
 
@@ -21,7 +21,6 @@ from windvane.inputs.lookup_request import LookupRequest
 from windvane.kinds.batch_writes import BatchWrites
 
 DurationS = Annotated[int, BeforeValidator(parse_duration_s)]
-EventKind = Literal["request", "bid", "win", "impression", "click"]
 KeyName = Annotated[str, Field(pattern=r"^[a-z+]+$")]
 
 

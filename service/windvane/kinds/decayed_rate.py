@@ -18,12 +18,11 @@ from typing import ClassVar
 from pydantic import BaseModel, ConfigDict, Field
 
 from windvane.durations import format_duration
-from windvane.inputs.events import Event
+from windvane.inputs.events import Event, EventKind
 from windvane.kinds.base import (
     DECODE_THREE_NUMBERS,
     BuildContext,
     DurationS,
-    EventKind,
     Feature,
     FeatureKind,
     FieldProblem,

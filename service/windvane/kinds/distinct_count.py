@@ -17,12 +17,11 @@ from operator import attrgetter
 from typing import Any
 
 from windvane.durations import format_duration
-from windvane.inputs.events import EVENT_FIELDS, Event
+from windvane.inputs.events import EVENT_FIELDS, Event, EventKind
 from windvane.keys import KeyLayout
 from windvane.kinds.base import (
     BuildContext,
     DurationS,
-    EventKind,
     Feature,
     FeatureKind,
     FieldProblem,

@@ -8,10 +8,10 @@ rate and a window count over the same events and buckets share one stored field.
 from __future__ import annotations
 
 from windvane.durations import format_duration
+from windvane.inputs.events import EventKind
 from windvane.kinds.base import (
     BuildContext,
     DurationS,
-    EventKind,
     Feature,
     FeatureKind,
     KeyedOptions,

@@ -10,11 +10,10 @@ from __future__ import annotations
 from typing import ClassVar
 
 from windvane.durations import format_duration
-from windvane.inputs.events import Event
+from windvane.inputs.events import Event, EventKind
 from windvane.kinds.base import (
     BuildContext,
     DurationS,
-    EventKind,
     Feature,
     FeatureKind,
     KeyedOptions,

@@ -9,10 +9,10 @@ a campaign to a user in the last hour, by minute (a frequency cap signal).
 from __future__ import annotations
 
 from windvane.durations import format_duration
+from windvane.inputs.events import EventKind
 from windvane.kinds.base import (
     BuildContext,
     DurationS,
-    EventKind,
     Feature,
     FeatureKind,
     KeyedOptions,

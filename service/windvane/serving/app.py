@@ -14,16 +14,17 @@ from windvane.models.snapshot import Snapshot
 from windvane.serving.config import ServiceConfig
 from windvane.serving.fast_path import FastLookup
 from windvane.serving.routes import install_error_handlers, router
-from windvane.serving.schema import LookupBody
+from windvane.serving.schema import lookup_body_schemas
 from windvane.serving.state import ServiceState
 
 DESCRIPTION = """\
 Behavioural features, model coefficients and scores for a real-time bidder.
 
-`POST /v1/lookup` answers one auction within its deadline (default 5 ms): features
-shared by all candidates, per-campaign features, the model version and traffic arm
-used, and a score per candidate. When the store is slow or down, the answer still
-arrives in time with `"stored": "missing"` and scores from the snapshot's defaults.
+`POST /v1/lookup` answers one auction within its deadline (here {deadline_ms:g} ms unless
+the call says otherwise): features shared by all candidates, per-campaign features, the
+model version and traffic arm used, and a score per candidate. When the store is slow
+or down, the answer still arrives in time with `"stored": "missing"` and scores from
+the snapshot's defaults.
 Writes (publishing, activating, rolling back) need `Authorization: Bearer <token>`.
 """
 
@@ -41,7 +42,7 @@ def create_app(config: ServiceConfig) -> FastAPI:
     app = FastAPI(
         title="windvane",
         version="0.1.0",
-        description=DESCRIPTION,
+        description=DESCRIPTION.format(deadline_ms=config.deadline_ms),
         lifespan=lifespan,
     )
     app.include_router(router)
@@ -54,12 +55,11 @@ def create_app(config: ServiceConfig) -> FastAPI:
                 routes=app.routes,
             )  # fmt: skip
             _, definitions = models_json_schema(
-                [(LookupBody, "validation"), (Snapshot, "validation")],
-                ref_template="#/components/schemas/{model}",
+                [(Snapshot, "validation")], ref_template="#/components/schemas/{model}"
             )
-            schema.setdefault("components", {}).setdefault("schemas", {}).update(
-                definitions.get("$defs", {})
-            )
+            components = schema.setdefault("components", {}).setdefault("schemas", {})
+            components.update(definitions.get("$defs", {}))
+            components.update(lookup_body_schemas("#/components/schemas/{name}"))
             app.openapi_schema = schema
         return app.openapi_schema
 

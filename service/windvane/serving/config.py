@@ -24,8 +24,8 @@ from typing import Any
 
 import orjson
 
-from windvane.errors import UsageError
-from windvane.serving.lookup_service import DEFAULT_DEADLINE_MS
+from windvane.errors import BadRequest, UsageError
+from windvane.inputs.deadline import DEFAULT_DEADLINE_MS, check_deadline_ms
 from windvane.serving.reply_cache import MAX_AGE_LIMIT_S
 
 ENVIRONMENT_KEY = "WINDVANE_SERVICE_CONFIG"
@@ -86,8 +86,10 @@ class ServiceConfig:
             raise UsageError("--cache-ms must lie between 0 and 1000: cached app state may lag 1 s")
         if not 0 < self.refresh_ms <= 1000:
             raise UsageError("--refresh-ms must lie between 1 and 1000 so activations land in 1 s")
-        if not 0 < self.deadline_ms <= 10_000:
-            raise UsageError("--deadline-ms must lie above 0 and at most 10000")
+        try:
+            check_deadline_ms(self.deadline_ms, "--deadline-ms")
+        except BadRequest as exc:
+            raise UsageError(str(exc)) from None
         return self
 
     def to_environment(self) -> str:

@@ -13,35 +13,23 @@ from typing import Any
 
 import orjson
 
-from windvane.errors import BadRequest
-from windvane.inputs.lookup_request import decode_lookup_call
+from windvane.inputs.deadline import DEADLINE_HEADER_BYTES, header_deadline_ms
+from windvane.inputs.lookup_request import decode_lookup_body
 from windvane.serving.http_errors import JSON, error_answer
-from windvane.serving.lookup_service import check_deadline_ms
 
 LOOKUP_PATH = "/v1/lookup"
-DEADLINE_HEADER = b"x-deadline-ms"
 
 
 async def answer_lookup(
     state: Any, body: bytes, deadline_header: bytes | None, started_s: float
 ) -> bytes:
     """The answer to one lookup body; raises windvane errors for the caller to map."""
-    call = decode_lookup_call(body)
+    call = decode_lookup_body(body)
     deadline_ms = call.deadline_ms
     if deadline_ms is None:
-        deadline_ms = header_deadline(deadline_header)
+        deadline_ms = header_deadline_ms(deadline_header)
     answer = await state.lookups.lookup(call, call.model, deadline_ms, started_s)
     return orjson.dumps(answer)
-
-
-def header_deadline(value: bytes | str | None) -> float | None:
-    """The ``X-Deadline-Ms`` header's deadline, or None when it is absent."""
-    if value is None:
-        return None
-    try:
-        return check_deadline_ms(float(value), "X-Deadline-Ms")
-    except ValueError:
-        raise BadRequest("X-Deadline-Ms", "must be a number of milliseconds") from None
 
 
 class FastLookup:
@@ -63,7 +51,7 @@ class FastLookup:
             more = message.get("more_body", False)
         deadline = None
         for name, value in scope["headers"]:
-            if name == DEADLINE_HEADER:
+            if name == DEADLINE_HEADER_BYTES:
                 deadline = value
         status, headers = 200, [(b"content-type", JSON.encode())]
         try:

@@ -13,23 +13,13 @@ import asyncio
 import time
 from typing import Any
 
-from windvane.errors import BadRequest, StoreError
+from windvane.errors import StoreError
+from windvane.inputs.deadline import DEFAULT_DEADLINE_MS
 from windvane.inputs.lookup_request import LookupRequest
 from windvane.models.cache import ModelCache
 from windvane.serving.reply_cache import ReplyCache
 from windvane.state.lookup_reader import MISSING, LookupReader
 from windvane.store.async_store import AsyncStateStore
-
-DEFAULT_DEADLINE_MS = 5.0
-MAX_DEADLINE_MS = 10_000.0
-
-
-def check_deadline_ms(value: object, field: str = "deadline_ms") -> float:
-    if isinstance(value, bool) or not isinstance(value, int | float):
-        raise BadRequest(field, "must be a number of milliseconds")
-    if not 0 < value <= MAX_DEADLINE_MS:
-        raise BadRequest(field, f"must be above 0 and at most {MAX_DEADLINE_MS:g} ms")
-    return float(value)
 
 
 class LookupService:

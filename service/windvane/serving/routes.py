@@ -29,23 +29,23 @@ from windvane.errors import (
 )
 from windvane.ingest.event_stream import append_async, decode_body, prepare
 from windvane.ingest.worker import read_statuses
+from windvane.inputs.deadline import DEADLINE_HEADER, header_deadline_ms
 from windvane.inputs.openrtb import lookups_from_bid_request
 from windvane.inputs.rtb_objects import identifier
 from windvane.models.registry import Arm
-from windvane.serving.fast_path import answer_lookup, header_deadline
+from windvane.serving.fast_path import answer_lookup
 from windvane.serving.http_errors import JSON, error_answer
 from windvane.serving.schema import (
+    LOOKUP_BODY,
     ActivateBody,
     ErrorBody,
     LookupAnswer,
-    LookupBody,
     OpenRtbAnswer,
 )
 from windvane.serving.state import ServiceState
 
 router = APIRouter()
 
-DEADLINE_HEADER = "x-deadline-ms"
 ACTOR_HEADER = "x-windvane-actor"
 ERRORS: dict[int | str, dict[str, Any]] = {
     401: {"model": ErrorBody, "description": "missing or wrong bearer token"},
@@ -92,7 +92,7 @@ def _model(raw: object) -> str | None:
     summary="Features, model version and scores for one auction",
     response_model=LookupAnswer,
     responses=ERRORS,
-    openapi_extra=_json_body(LookupBody.__name__),
+    openapi_extra=_json_body(LOOKUP_BODY),
     tags=["lookup"],
 )
 async def lookup(request: Request) -> Response:
@@ -127,7 +127,7 @@ async def lookup_openrtb(
 ) -> Response:
     started = time.perf_counter()
     body = await _decode(request)
-    deadline_ms = header_deadline(request.headers.get(DEADLINE_HEADER))
+    deadline_ms = header_deadline_ms(request.headers.get(DEADLINE_HEADER))
     candidates = tuple(
         identifier(c, "campaigns", BadRequest) or "" for c in campaigns.split(",") if c
     )

@@ -1,59 +1,21 @@
-"""Bodies of the HTTP API as pydantic models, for the OpenAPI document.
+"""Bodies of the HTTP API for the OpenAPI document, each written once.
 
-The lookup endpoints do not validate through these models (they parse with the same
-plain-Python code as the CLI, which is faster); the models describe the bodies for
-bidder engineers and generated clients. Write endpoints, which are rare, do validate
-with them.
+The lookup body is the msgspec struct the fast path decodes with
+(``inputs.lookup_request.LookupBody``); its JSON Schema is generated from it, so the
+documented limits are the enforced ones. The answers and the rare write bodies are
+pydantic models here; write endpoints validate with them.
 """
 
 from __future__ import annotations
 
 from typing import Any
 
+import msgspec
 from pydantic import BaseModel, ConfigDict, Field
 
+from windvane.inputs.lookup_request import LookupBody
 
-class DeviceBody(BaseModel):
-    """OpenRTB 2.5 Device fields windvane reads; w/h physical pixels."""
-
-    ua: str | None = None
-    model: str | None = None
-    os: str | None = None
-    w: float | None = Field(None, gt=0, description="screen width, physical pixels")
-    h: float | None = Field(None, gt=0, description="screen height, physical pixels")
-    pxratio: float | None = Field(None, gt=0, description="physical per device-independent pixel")
-    lmt: int | None = Field(None, ge=0, le=1, description="1: limit ad tracking")
-
-
-class GeoBody(BaseModel):
-    country: str | None = Field(None, description="ISO 3166-1 alpha-3, e.g. DEU")
-    lat: float | None = Field(None, ge=-90, le=90)
-    lon: float | None = Field(None, ge=-180, le=180)
-    utcoffset: int | None = Field(None, description="minutes east of UTC")
-
-
-class SlotBody(BaseModel):
-    w: float = Field(gt=0, description="creative width, device-independent pixels")
-    h: float = Field(gt=0, description="creative height, device-independent pixels")
-
-
-class LookupBody(BaseModel):
-    """A lookup: who, when, on what device and slot, for which candidate campaigns."""
-
-    user: str | None = Field(None, description="hashed device or user id")
-    app: str | None = Field(None, description="app bundle id")
-    ts: float | str | None = Field(
-        None, description="epoch seconds or RFC 3339 with offset; default now"
-    )
-    device: DeviceBody | None = None
-    geo: GeoBody | None = None
-    slot: SlotBody | None = None
-    campaigns: list[str] = Field(default_factory=list, description="candidate campaigns")
-    coppa: int | None = Field(None, ge=0, le=1)
-    model: str | None = Field(None, description="model to score with; default: the service's")
-    deadline_ms: float | None = Field(
-        None, gt=0, description="answer within this many ms (default 5); header X-Deadline-Ms"
-    )
+LOOKUP_BODY = LookupBody.__name__
 
 
 class ModelUsed(BaseModel):
@@ -109,3 +71,9 @@ class ErrorDetail(BaseModel):
 
 class ErrorBody(BaseModel):
     error: ErrorDetail
+
+
+def lookup_body_schemas(ref_template: str) -> dict[str, Any]:
+    """JSON Schemas of the lookup body and the objects it holds, keyed by name."""
+    _, components = msgspec.json.schema_components((LookupBody,), ref_template=ref_template)
+    return components

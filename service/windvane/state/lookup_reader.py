@@ -36,18 +36,22 @@ class PreparedLookup:
         self.commands: list[tuple[Any, ...]] = []
         # Per command: True when it reads no per-user state, so a short-lived cache may answer.
         self.cacheable: list[bool] = []
-        # (key_shape, campaign or None, index of the HGETALL or -1, {field: index of its command})
+        # (key shape, campaign or None, index of the HGETALL or -1, {field: index of its command})
         self.reads: list[tuple[KeyShape, str | None, int, dict[str, int]]] = []
 
 
 class _KeyShapeRead:
     """What a lookup reads for one kind of key, worked out once from the plan."""
 
-    __slots__ = ("fields", "has_hash", "key_shape", "needs_app", "per_campaign", "per_user", "side")
+    __slots__ = (
+        "fields", "has_hash", "key_shape", "name_key", "needs_app", "per_campaign", "per_user",
+        "side",
+    )  # fmt: skip
 
-    def __init__(self, key_shape: KeyShape) -> None:
+    def __init__(self, key_shape: KeyShape, layout: KeyLayout) -> None:
         self.key_shape = key_shape
         self.fields = key_shape.fields
+        self.name_key = layout.state_key_format(key_shape.fields).format
         self.per_user = key_shape.per_user
         self.per_campaign = key_shape.per_campaign
         self.needs_app = "app" in key_shape.fields
@@ -59,7 +63,7 @@ class LookupReader:
     def __init__(self, plan: Plan, layout: KeyLayout) -> None:
         self.plan = plan
         self.layout = layout
-        self._scopes = [_KeyShapeRead(key_shape) for key_shape in plan.key_shapes]
+        self._shapes = [_KeyShapeRead(key_shape, layout) for key_shape in plan.key_shapes]
         # The answer's shape, worked out once: request-time features, and the names of
         # the shared and per-candidate ones in plan order, stored ones null until read.
         self._request_time = [f for f in plan.features if f.state is None]
@@ -67,7 +71,7 @@ class LookupReader:
         self._stored_per_campaign = [
             f.name for f in plan.features if f.state is not None and "campaign" in f.key_fields
         ]
-        # Per key_shape: (hash field as bytes, field name, (feature name, read) it feeds).
+        # Per key shape: (hash field as bytes, field name, (feature name, read) it feeds).
         self._readers = {
             id(key_shape): [
                 (stored.field.encode(), stored.field, [(f.name, f.read) for f in stored.features])
@@ -82,8 +86,7 @@ class LookupReader:
         lookup = PreparedLookup(request)
         commands, cacheable, reads = lookup.commands, lookup.cacheable, lookup.reads
         no_user = request.user is None or request.restricted
-        state_key = self.layout.state_key
-        for read in self._scopes:
+        for read in self._shapes:
             if (read.per_user and no_user) or (read.needs_app and request.app is None):
                 continue
             shared = not read.per_user
@@ -92,7 +95,7 @@ class LookupReader:
                     request.user if name == "user" else request.app if name == "app" else campaign
                     for name in read.fields
                 )
-                key = state_key(read.fields, values)  # type: ignore[arg-type]
+                key = read.name_key(*values)
                 index = -1
                 if read.has_hash:
                     index = len(commands)

@@ -14,7 +14,7 @@ from operator import attrgetter
 
 from windvane.definitions.plan import KeyShape, Plan, Updater
 from windvane.inputs.events import Event
-from windvane.keys import KEY_FIELD_LETTERS, KeyLayout, watermark_field
+from windvane.keys import KeyLayout, watermark_field
 from windvane.kinds.batch_writes import BatchWrites
 
 KeyOf = Callable[[Event], "str | None"]
@@ -24,32 +24,23 @@ Update = Callable[[Event, str, str, BatchWrites], None]
 def key_builder(layout: KeyLayout, fields: tuple[str, ...]) -> KeyOf:
     """A function from an event to its key for ``fields`` (None when a field is missing).
 
-    It builds the same name as ``KeyLayout.state_key``, specialised once per key shape
-    because it runs for every event and every key the event touches.
+    It fills in ``KeyLayout.state_key_format``, with the getters chosen once per key
+    shape because it runs for every event and every key the event touches.
     """
-    prefix = layout.prefix
-    head = attrgetter(fields[0])
-    tag = KEY_FIELD_LETTERS[fields[0]]
+    name_key = layout.state_key_format(fields).format
     if len(fields) == 1:
+        head = attrgetter(fields[0])
 
         def single(event: Event) -> str | None:
             value = head(event)
-            return None if value is None else f"{prefix}{{{tag}:{value}}}"
+            return None if value is None else name_key(value)
 
         return single
-    rest = [(attrgetter(name), KEY_FIELD_LETTERS[name]) for name in fields[1:]]
+    values_of = attrgetter(*fields)
 
     def compound(event: Event) -> str | None:
-        value = head(event)
-        if value is None:
-            return None
-        parts = [f"{prefix}{{{tag}:{value}}}"]
-        for get, letter in rest:
-            part = get(event)
-            if part is None:
-                return None
-            parts.append(f"{letter}:{part}")
-        return ":".join(parts)
+        values = values_of(event)
+        return None if None in values else name_key(*values)
 
     return compound
 
