@@ -149,7 +149,7 @@ def load_demo(redis_url: str, events: int, work: Path) -> list[bytes]:
     try:
         with RejectsFile(work / "rejects.jsonl") as rejects:
             replay(engine, [str(log)], rejects)
-        registry = ModelRegistry(engine.store.client, feature_shapes(engine.plan))  # type: ignore[attr-defined]
+        registry = ModelRegistry(engine.store, feature_shapes(engine.plan))
         registry.publish(MODEL, SNAPSHOT.read_bytes(), "bench", activate=True)
     finally:
         engine.close()

@@ -46,8 +46,5 @@ class IngestProcess:
     def stop(self) -> None:
         stop_child(self.process, signal.SIGTERM, timeout_s=15)
 
-    def alive(self) -> bool:
-        return self.process is not None and self.process.poll() is None
-
     def output(self) -> str:
         return self.log.read_text(errors="replace") if self.log.exists() else ""

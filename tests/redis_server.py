@@ -10,12 +10,12 @@ import shutil
 import socket
 import subprocess
 import tempfile
-import time
 from pathlib import Path
 
 import redis
 
 from tests.child_process import stop_child
+from tests.support import wait_until
 
 
 def free_port() -> int:
@@ -61,19 +61,26 @@ class RedisServer:
             args += ["--appendonly", "no"]
         self.process = subprocess.Popen(args, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
         client = redis.Redis(port=self.port, socket_connect_timeout=0.2)
-        deadline = time.monotonic() + 10
-        while True:
-            try:
-                client.ping()
-                break
-            except redis.exceptions.ConnectionError:
-                if self.process.poll() is not None or time.monotonic() > deadline:
-                    log = (self.directory / "redis.log").read_text(errors="replace")
-                    raise RuntimeError(f"redis-server did not start:\n{log}") from None
-                time.sleep(0.02)
-            finally:
-                client.close()
+        if not wait_until(lambda: self._answers(client), timeout_s=10):
+            raise self._did_not_start()
         return self
+
+    def _answers(self, client: redis.Redis) -> bool:
+        """True once the server answers PING; a server that has exited never will."""
+        try:
+            client.ping()
+        except redis.exceptions.ConnectionError:
+            if self.process is None or self.process.poll() is not None:
+                raise self._did_not_start() from None
+            return False
+        finally:
+            client.close()
+        return True
+
+    def _did_not_start(self) -> RuntimeError:
+        """The error to raise, carrying the server's log, which says why it did not start."""
+        log = (self.directory / "redis.log").read_text(errors="replace")
+        return RuntimeError(f"redis-server did not start:\n{log}")
 
     def stop(self) -> None:
         stop_child(self.process)

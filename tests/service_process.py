@@ -6,13 +6,13 @@ import os
 import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import httpx
 
 from tests.child_process import stop_child
 from tests.redis_server import free_port
+from tests.support import wait_until
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -38,17 +38,20 @@ class ServiceProcess:
             self.process = subprocess.Popen(
                 self.args, cwd=ROOT, env=self.env, stdout=out, stderr=subprocess.STDOUT
             )
-        deadline = time.monotonic() + timeout_s
-        while time.monotonic() < deadline:
-            if self.process.poll() is not None:
-                raise RuntimeError(f"windvane serve exited:\n{self.log.read_text()}")
-            try:
-                httpx.get(f"{self.url}/openapi.json", timeout=0.5)
-                return self
-            except httpx.TransportError:
-                time.sleep(0.05)
+        if wait_until(self._answers, timeout_s, step_s=0.05):
+            return self
         self.stop()
         raise RuntimeError(f"windvane serve did not start:\n{self.log.read_text()}")
+
+    def _answers(self) -> bool:
+        """True once the service answers HTTP; a process that has exited will never answer."""
+        if self.process is None or self.process.poll() is not None:
+            raise RuntimeError(f"windvane serve exited:\n{self.log.read_text()}")
+        try:
+            httpx.get(f"{self.url}/openapi.json", timeout=0.5)
+        except httpx.TransportError:
+            return False
+        return True
 
     def stop(self) -> None:
         stop_child(self.process, signal.SIGINT)

@@ -1,15 +1,21 @@
-"""Small helpers shared by the tests: definition files, events, and a full dump of stored state."""
+"""What the tests share: definition files, events, test data, waiting, and stored state.
+
+Shared data lives here rather than in the test module that first used it, so that no
+test module imports another and each can move or go on its own.
+"""
 
 from __future__ import annotations
 
 import itertools
 import math
+import random
 import textwrap
 import time
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
-import redis
+import orjson
 
 from windvane.definitions.plan import load_plan
 from windvane.engine import Engine
@@ -17,6 +23,90 @@ from windvane.inputs.events import Event, parse_event
 from windvane.store import open_store
 
 _ids = itertools.count()
+
+# The moment good_lines' events lead up to: fixed once per test session, so every caller
+# replays the same events and lookups at one time see them all.
+_LINES_NOW = round(time.time())
+
+
+def good_lines(count: int, seed: int = 3) -> list[bytes]:
+    """Valid event lines, one a second through the hour before ``_LINES_NOW``.
+
+    Few users, apps and campaigns, so that keys gather many events; replay, CLI and
+    service tests share them so each checks the same, known data.
+    """
+    rng = random.Random(seed)
+    lines = []
+    for n in range(count):
+        kind = rng.choice(["request", "bid", "win", "impression", "click"])
+        record = {
+            "kind": kind,
+            "ts": _LINES_NOW - 3600 + n,
+            "id": f"auction-{n}",
+            "user": f"user-{rng.randrange(20)}",
+            "app": f"app-{rng.randrange(4)}",
+            "campaign": f"camp-{rng.randrange(3)}",
+            "slot": {"w": 320, "h": 50},
+            "device": {"w": 1080, "h": 1920, "pxratio": 3, "lmt": 0},
+        }
+        if kind in ("bid", "win"):
+            record["price"] = 1.25
+        lines.append(orjson.dumps(record))
+    return lines
+
+
+# Each malformed line with the field its rejection must name.
+BAD_LINES = [
+    (b'{"kind": "request", "ts": 17', ""),  # truncated JSON
+    (b'{"kind": "bidd", "ts": 1796000000, "id": "x"}', "kind"),
+    (b'{"kind": "request", "id": "x", "user": "u"}', "ts"),
+    (b'{"kind": "request", "ts": "yesterday", "id": "x"}', "ts"),
+    (b'{"kind": "request", "ts": "2026-12-01T10:00:00", "id": "x"}', "ts"),  # no offset
+    (b'{"kind": "bid", "ts": 1796000000, "id": "x", "app": "a", "price": -0.5}', "price"),
+    (b'{"kind": "request", "ts": 1796000000, "id": "x", "slot": {"w": "wide", "h": 50}}', "slot.w"),
+    (
+        b'{"kind": "request", "ts": 1796000000, "id": "x", "device": {"w": 1080, "h": "tall"}}',
+        "device.h",
+    ),
+    (b'{"kind": "request", "ts": 1796000000, "user": "u"}', "id"),
+    (b'["kind", "request"]', ""),
+    (b'{"kind": "request", "ts": 1796000000000, "id": "x"}', "ts"),  # milliseconds
+    (b'{"kind": "click", "ts": 1796000000, "id": "x", "user": "a{b}"}', "user"),
+]
+
+# A valid model snapshot over the demo definitions, with a term of every shape.
+GOOD_SNAPSHOT = {
+    "version": "v1",
+    "intercept": -3.0,
+    "terms": [
+        {"name": "ctr", "feature": "app_ctr", "transforms": ["log1p"], "weight": 20.0},
+        {
+            "name": "frac",
+            "feature": "screen_fraction",
+            "transforms": [{"clip": [0, 1]}, {"standardize": {"mean": 0.1, "scale": 0.2}}],
+            "weight": 0.5,
+            "default": 0.0,
+        },
+        {"name": "freq", "feature": "imps_1h", "weight": -0.2, "default": 0.0},
+        {"name": "evening", "indicator": {"feature": "local_hour", "value": 21}, "weight": 0.3},
+        {"name": "ctr_x_frac", "product": ["ctr", "frac"], "weight": 1.5, "default": -0.1},
+    ],
+}
+
+
+def wait_until(check: Callable[[], bool], timeout_s: float, step_s: float = 0.02) -> bool:
+    """Poll ``check`` until it holds or ``timeout_s`` has passed; the last try is after it.
+
+    Waiting for the condition rather than sleeping a fixed time keeps fast machines fast
+    and gives slow ones the whole timeout, and the final try means a condition that comes
+    true right at the deadline still counts.
+    """
+    deadline = time.monotonic() + timeout_s
+    while time.monotonic() < deadline:
+        if check():
+            return True
+        time.sleep(step_s)
+    return check()
 
 
 def write_defs(directory: Path, text: str, name: str = "features.toml") -> Path:
@@ -53,10 +143,6 @@ def dump_state(engine: Engine) -> dict[str, Any]:
             content = store.read([("PFCOUNT", key)])[0]
         state[key] = (kind if kind == "hash" else "hll", content, store.expire_at_ms(key))
     return state
-
-
-def redis_client(url: str) -> redis.Redis:
-    return redis.Redis.from_url(url)
 
 
 def compare_generations(engine_a: Engine, engine_b: Engine) -> list[str]:

@@ -8,7 +8,6 @@ import shutil
 import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import httpx
@@ -16,6 +15,7 @@ import orjson
 
 from tests.conftest import ROOT
 from tests.redis_server import free_port
+from tests.support import wait_until
 
 
 def test_demo_curl_commands_split_and_rollback(tmp_path: Path) -> None:
@@ -102,13 +102,16 @@ def run(command: str) -> bytes:
 
 
 def wait_until_up(base: str, process: subprocess.Popen, log: Path) -> None:
-    deadline = time.monotonic() + 90
-    while time.monotonic() < deadline:
+    """Wait for the demo to answer; it generates and replays its log first, which takes a while."""
+
+    def up() -> bool:
         if process.poll() is not None:
             raise AssertionError(f"windvane demo exited:\n{log.read_text()}")
         try:
             httpx.get(f"{base}/v1/health", timeout=0.5)
-            return
         except httpx.TransportError:
-            time.sleep(0.1)
-    raise AssertionError(f"windvane demo did not start:\n{log.read_text()}")
+            return False
+        return True
+
+    if not wait_until(up, timeout_s=90, step_s=0.1):
+        raise AssertionError(f"windvane demo did not start:\n{log.read_text()}")

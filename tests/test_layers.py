@@ -127,6 +127,37 @@ def cycles(graph: Mapping[str, set[str]]) -> list[list[str]]:
     return found
 
 
+# The only modules that hold a Redis client and so may see its exceptions: the store
+# package and the event stream's two modules. Each turns the client's errors into
+# windvane's at its edge (``store.redis_errors``), so nothing above ever sees one.
+REDIS_CLIENT_USERS = ("windvane.store", "windvane.ingest.event_stream", "windvane.ingest.worker")
+
+
+def redis_users() -> list[str]:
+    users = []
+    for path in sorted(PACKAGE_DIR.rglob("*.py")):
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            names = []
+            if isinstance(node, ast.Import):
+                names = [alias.name for alias in node.names]
+            elif isinstance(node, ast.ImportFrom) and not node.level:
+                names = [node.module or ""]
+            if any(n.split(".")[0] in ("redis", "fakeredis", "hiredis") for n in names):
+                users.append(module_name(path))
+                break
+    return users
+
+
+def test_only_the_store_and_the_stream_hold_a_redis_client() -> None:
+    outside = [
+        m
+        for m in redis_users()
+        if not any(m == allowed or m.startswith(allowed + ".") for allowed in REDIS_CLIENT_USERS)
+    ]
+    assert outside == []
+    assert "windvane.store.redis_errors" in redis_users()
+
+
 def test_no_module_imports_from_a_layer_above_it() -> None:
     assert upward_imports(import_graph()) == []
 

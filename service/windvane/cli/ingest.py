@@ -11,17 +11,22 @@ from collections.abc import Sequence
 from datetime import UTC, datetime
 from typing import Any
 
-import redis
-
 from windvane.cli.options import time_option
 from windvane.engine import Engine
 from windvane.errors import BadEvent, UsageError
-from windvane.ingest.event_stream import append, shard_count, shard_of
+from windvane.ingest.event_stream import (
+    StreamClient,
+    append,
+    drop_consumer_groups,
+    open_stream,
+    shard_count,
+    shard_of,
+)
 from windvane.ingest.logfile import read_lines
 from windvane.ingest.rejects import RejectsFile
 from windvane.ingest.worker import IngestSettings, IngestWorker
 from windvane.inputs.events import parse_event_line
-from windvane.keys import SHARD_COUNT_KEY, check_generation, consumer_group, stream_key
+from windvane.keys import check_generation
 from windvane.store import open_store
 from windvane.store.generations import Generations
 
@@ -70,14 +75,12 @@ def add_ingest_commands(commands: Any) -> None:
     gens.set_defaults(run=_generations)
 
 
-def _client(url: str) -> redis.Redis:
-    if not url.startswith(("redis://", "rediss://", "unix://")):
-        raise UsageError(f"the event stream needs a Redis server URL, not {url!r}")
-    return redis.Redis.from_url(url, socket_timeout=5, socket_connect_timeout=5)
-
-
 def _send(args: argparse.Namespace) -> int:
-    client = _client(args.stream)
+    with contextlib.closing(open_stream(args.stream)) as client:
+        return _send_logs(args, client)
+
+
+def _send_logs(args: argparse.Namespace, client: StreamClient) -> int:
     shards = shard_count(client, args.shards)
     sent = rejected = 0
     started = time.monotonic()
@@ -106,7 +109,7 @@ def _send(args: argparse.Namespace) -> int:
 
 
 def _append_paced(
-    client: redis.Redis, batch: list[tuple[int, bytes]], sent: int, started: float,
+    client: StreamClient, batch: list[tuple[int, bytes]], sent: int, started: float,
     rate: float | None,
 ) -> int:  # fmt: skip
     if rate:
@@ -119,11 +122,17 @@ def _append_paced(
 
 
 def _ingest(args: argparse.Namespace) -> int:
-    stream = _client(args.stream)
-    store = open_store(args.store)
-    generation = args.generation or Generations(store.client).active()  # type: ignore[attr-defined]
-    check_generation(generation)
-    engine = Engine.open(args.defs, args.store, generation)
+    if args.generation is not None:
+        check_generation(args.generation)
+    with (
+        contextlib.closing(open_stream(args.stream)) as stream,
+        Engine.open(args.defs, args.store, args.generation, "stream ingest") as engine,
+    ):
+        return _run_worker(args, stream, engine)
+
+
+def _run_worker(args: argparse.Namespace, stream: StreamClient, engine: Engine) -> int:
+    generation = engine.generation
     settings = IngestSettings(
         shards=_parse_shards(args.shards),
         batch=args.batch,
@@ -177,8 +186,11 @@ def _parse_shards(text: str) -> tuple[int, ...] | None:
 
 
 def _generations(args: argparse.Namespace) -> int:
-    store = open_store(args.store)
-    generations = Generations(store.client)  # type: ignore[attr-defined]
+    with open_store(args.store) as store:
+        return _generation_action(args, Generations(store))
+
+
+def _generation_action(args: argparse.Namespace, generations: Generations) -> int:
     if args.action == "list":
         for row in generations.list():
             mark = "*" if row["active"] else " "
@@ -194,17 +206,9 @@ def _generations(args: argparse.Namespace) -> int:
         sys.stdout.write(f"{args.name} is now the active generation\n")
     else:
         deleted = generations.drop(args.name)
-        _destroy_groups(store.client, args.name)  # type: ignore[attr-defined]
+        drop_consumer_groups(generations.client, args.name)
         sys.stdout.write(f"dropped generation {args.name}: {deleted:,} keys deleted\n")
     return 0
-
-
-def _destroy_groups(client: redis.Redis, generation: str) -> None:
-    """A dropped generation's consumer groups would keep the stream from being trimmed."""
-    shards = int(client.get(SHARD_COUNT_KEY) or 0)
-    for number in range(shards):
-        with contextlib.suppress(redis.exceptions.ResponseError):
-            client.xgroup_destroy(stream_key(number), consumer_group(generation))
 
 
 def _iso(ts: float | None) -> str:

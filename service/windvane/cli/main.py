@@ -15,7 +15,6 @@ from collections.abc import Sequence
 from datetime import UTC, datetime
 
 import orjson
-import redis
 
 from windvane.cli.ingest import add_ingest_commands
 from windvane.cli.models import add_model_commands
@@ -57,9 +56,6 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 1
     except WindvaneError as exc:
         sys.stderr.write(f"windvane: {exc}\n")
-        return 1
-    except (redis.exceptions.ConnectionError, redis.exceptions.TimeoutError) as exc:
-        sys.stderr.write(f"windvane: the store did not answer: {exc}\n")
         return 1
     except KeyboardInterrupt:
         sys.stderr.write("windvane: interrupted\n")

@@ -10,6 +10,8 @@ import argparse
 import getpass
 import socket
 import sys
+from collections.abc import Iterator
+from contextlib import contextmanager
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -20,7 +22,6 @@ from windvane.errors import UsageError
 from windvane.models.registry import Arm, ModelRegistry
 from windvane.serving.state import feature_shapes
 from windvane.store import open_store
-from windvane.store.redis_store import RedisStateStore
 
 
 def add_model_commands(commands: Any) -> None:
@@ -53,12 +54,12 @@ def add_model_commands(commands: Any) -> None:
     lst.set_defaults(run=_models)
 
 
-def _registry(args: argparse.Namespace, with_features: bool) -> ModelRegistry:
-    store = open_store(args.store)
-    if not isinstance(store, RedisStateStore):
-        raise UsageError("the model registry needs a Redis-compatible store")
+@contextmanager
+def _registry(args: argparse.Namespace, with_features: bool) -> Iterator[ModelRegistry]:
+    """The registry in ``--store``, closed with the command."""
     features = feature_shapes(load_plan(args.defs)) if with_features else {}
-    return ModelRegistry(store.client, features, args.store)
+    with open_store(args.store) as store:
+        yield ModelRegistry(store, features)
 
 
 def _publish(args: argparse.Namespace) -> int:
@@ -66,7 +67,8 @@ def _publish(args: argparse.Namespace) -> int:
         document = Path(args.file).read_bytes()
     except OSError as exc:
         raise UsageError(f"cannot read snapshot {args.file}: {exc.strerror}") from None
-    meta = _registry(args, True).publish(args.model, document, args.by, args.activate)
+    with _registry(args, True) as registry:
+        meta = registry.publish(args.model, document, args.by, args.activate)
     state = "published and activated" if args.activate else "published (not active)"
     sys.stdout.write(f"{args.model} {meta['version']} {state}, checksum {meta['checksum'][:12]}\n")
     return 0
@@ -84,19 +86,26 @@ def parse_arms(texts: list[str]) -> list[Arm]:
 
 
 def _activate(args: argparse.Namespace) -> int:
-    split = _registry(args, False).activate(args.model, parse_arms(args.arms), args.by)
+    with _registry(args, False) as registry:
+        split = registry.activate(args.model, parse_arms(args.arms), args.by)
     sys.stdout.write(f"{args.model}: {_arms(split.to_dict())}\n")
     return 0
 
 
 def _rollback(args: argparse.Namespace) -> int:
-    split = _registry(args, False).rollback(args.model, args.by)
+    with _registry(args, False) as registry:
+        split = registry.rollback(args.model, args.by)
     sys.stdout.write(f"{args.model} rolled back to {_arms(split.to_dict())}\n")
     return 0
 
 
 def _models(args: argparse.Namespace) -> int:
-    registry = _registry(args, False)
+    with _registry(args, False) as registry:
+        _list_models(args, registry)
+    return 0
+
+
+def _list_models(args: argparse.Namespace, registry: ModelRegistry) -> None:
     names = [args.model] if args.model else registry.models()
     if not names:
         sys.stdout.write("no models published\n")
@@ -117,7 +126,6 @@ def _models(args: argparse.Namespace) -> int:
             for entry in registry.audit(name):
                 when = entry.get("published_at") or entry.get("activated_at") or entry.get("at")
                 sys.stdout.write(f"    {_when(when)}  {entry['action']:<9} by {entry.get('by')}\n")
-    return 0
 
 
 def _arms(split: dict[str, Any]) -> str:

@@ -18,7 +18,6 @@ import uvicorn
 
 from windvane.definitions.plan import load_plan
 from windvane.engine import Engine
-from windvane.errors import UsageError
 from windvane.ingest.rejects import RejectsFile
 from windvane.ingest.replay import replay
 from windvane.inputs.deadline import DEFAULT_DEADLINE_MS
@@ -27,7 +26,6 @@ from windvane.serving.app import create_asgi
 from windvane.serving.config import ENVIRONMENT_KEY, ServiceConfig, load_config
 from windvane.serving.state import feature_shapes
 from windvane.store import open_store
-from windvane.store.redis_store import RedisStateStore
 
 
 def add_service_commands(commands: Any) -> None:
@@ -125,16 +123,12 @@ def _demo(args: argparse.Namespace) -> int:
     config = ServiceConfig(
         store="memory://demo", defs=args.defs, port=args.port, insecure_dev=True
     ).check()
-    plan = load_plan(config.defs)
-    store = open_store(config.store)
-    if not isinstance(store, RedisStateStore):
-        raise UsageError("the demo needs the embedded store")
-    engine = Engine(plan, store)
-    with RejectsFile(out / "rejects.jsonl") as rejects:
-        stats = replay(engine, [str(log)], rejects)
-    registry = ModelRegistry(store.client, feature_shapes(plan), config.store)
-    registry.publish(DEMO_MODEL, snapshot_path.read_bytes(), "windvane demo", activate=True)
-    _print_sample_lookups(engine, demo_log.lookups[:3])
+    with Engine.open(config.defs, config.store) as engine:
+        with RejectsFile(out / "rejects.jsonl") as rejects:
+            stats = replay(engine, [str(log)], rejects)
+        registry = ModelRegistry(engine.store, feature_shapes(engine.plan))
+        registry.publish(DEMO_MODEL, snapshot_path.read_bytes(), "windvane demo", activate=True)
+        _print_sample_lookups(engine, demo_log.lookups[:3])
     request = _demo_request(demo_log.lookups)
     _print_demo_help(config, stats.applied, stats.rejected, request)
     run_service(dataclasses.replace(config, default_model=DEMO_MODEL))

@@ -81,10 +81,6 @@ class Plan:
     updaters: dict[str, list[Updater]]
     expire_margin_s: int
 
-    @property
-    def request_features(self) -> list[Feature]:
-        return [f for f in self.features if f.state is None]
-
     def feature_names(self) -> list[str]:
         return [f.name for f in self.features]
 

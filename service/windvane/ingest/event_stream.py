@@ -18,12 +18,18 @@ from typing import Any
 
 import orjson
 import redis
+import redis.asyncio
 
-from windvane.errors import BadEvent, UsageError
+from windvane.errors import BadEvent, StoreUnavailable, UsageError
 from windvane.inputs.events import Event, parse_event
-from windvane.keys import SHARD_COUNT_KEY, stream_key
+from windvane.keys import SHARD_COUNT_KEY, consumer_group, stream_key
+from windvane.store.clients import async_redis_client, redis_client
+from windvane.store.redis_errors import describe, store_errors
+from windvane.store.url import server_url
 
 DEFAULT_SHARDS = 4
+# A blocking client of the stream's server, made by ``open_stream``.
+StreamClient = redis.Redis
 ENTRY_FIELD = b"event"
 
 
@@ -92,8 +98,9 @@ def prepare(items: Sequence[Any], shards: int) -> tuple[list[tuple[int, bytes]],
 def shard_count(client: redis.Redis, wanted: int | None = None) -> int:
     """The stream's shard count, fixed by whoever used it first; a mismatch is refused."""
     proposed = wanted or DEFAULT_SHARDS
-    client.set(SHARD_COUNT_KEY, proposed, nx=True)
-    stored = int(client.get(SHARD_COUNT_KEY) or proposed)
+    with store_errors(describe(client)):
+        client.set(SHARD_COUNT_KEY, proposed, nx=True)
+        stored = int(client.get(SHARD_COUNT_KEY) or proposed)
     if wanted is not None and wanted != stored:
         raise UsageError(
             f"the stream already has {stored} shards; producers and workers must agree "
@@ -107,12 +114,58 @@ def append(client: redis.Redis, entries: Iterable[tuple[int, bytes]]) -> list[st
     pipe = client.pipeline(transaction=False)
     for shard, body in entries:
         pipe.xadd(stream_key(shard), {ENTRY_FIELD: body})
-    return [i.decode() if isinstance(i, bytes) else i for i in pipe.execute()]
+    with store_errors(describe(client)):
+        ids = pipe.execute()
+    return [i.decode() if isinstance(i, bytes) else i for i in ids]
 
 
-async def append_async(client: Any, entries: Iterable[tuple[int, bytes]]) -> list[str]:
+async def append_async(
+    client: redis.asyncio.Redis, entries: Iterable[tuple[int, bytes]]
+) -> list[str]:
     """The same as ``append`` on an asyncio client, for the HTTP service."""
     pipe = client.pipeline(transaction=False)
     for shard, body in entries:
         pipe.xadd(stream_key(shard), {ENTRY_FIELD: body})
-    return [i.decode() if isinstance(i, bytes) else i for i in await pipe.execute()]
+    with store_errors(describe(client)):
+        ids = await pipe.execute()
+    return [i.decode() if isinstance(i, bytes) else i for i in ids]
+
+
+def open_stream(url: str, timeout_s: float = 5.0) -> StreamClient:
+    """A client of the event stream at ``url``, which must be a Redis server."""
+    return redis_client(server_url(url, "the event stream"), timeout_s)
+
+
+def drop_consumer_groups(client: redis.Redis, generation: str) -> None:
+    """A dropped generation's consumer groups would keep the stream from being trimmed."""
+    with store_errors(describe(client)):
+        shards = int(client.get(SHARD_COUNT_KEY) or 0)
+        for number in range(shards):
+            try:
+                client.xgroup_destroy(stream_key(number), consumer_group(generation))
+            except redis.exceptions.ResponseError:
+                continue  # that shard never had the group
+
+
+class EventStream:
+    """The producer side of the event stream, for ``POST /v1/events`` of the service."""
+
+    def __init__(self, sync: redis.Redis, client: redis.asyncio.Redis, shards: int) -> None:
+        self.sync = sync
+        self.client = client
+        self.shards = shards
+
+    @classmethod
+    def open(cls, url: str, shards: int | None) -> EventStream:
+        """Connect; when the stream is down now, start with ``shards`` (or the default)."""
+        parsed = server_url(url, "the event stream")
+        sync = redis_client(parsed)
+        try:
+            count = shard_count(sync, shards)
+        except StoreUnavailable:
+            count = shards or DEFAULT_SHARDS
+        return cls(sync, async_redis_client(parsed, 5.0), count)
+
+    async def close(self) -> None:
+        await self.client.aclose()
+        self.sync.close()

@@ -14,13 +14,12 @@ from collections import Counter
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 
-from windvane.engine import Engine
+from windvane.engine import Engine, PendingBatch
 from windvane.errors import BadEvent
 from windvane.ingest.logfile import read_lines
 from windvane.ingest.rejects import RejectsFile
 from windvane.inputs.events import Event, parse_event_line
 from windvane.kinds.batch_writes import BatchWrites
-from windvane.store.base import PendingWrites
 
 DEFAULT_BATCH_SIZE = 5000
 
@@ -113,9 +112,6 @@ def _replay_files(
             progress(stats, path)
 
 
-_Range = tuple[int, float, float]  # events applied, first and last event time
-
-
 class _Overlapped:
     """Keeps one batch on the wire while the next is parsed, in one thread.
 
@@ -126,22 +122,19 @@ class _Overlapped:
 
     def __init__(self, engine: Engine) -> None:
         self.engine = engine
-        self.pending: PendingWrites | None = None
-        self.applied: _Range = (0, 0.0, 0.0)
+        self.pending: PendingBatch | None = None
 
     def __enter__(self) -> _Overlapped:
         return self
 
-    def submit(self, writes: BatchWrites, applied: _Range) -> None:
+    def submit(self, writes: BatchWrites) -> None:
         self.finish()
-        self.pending = self.engine.store.send(writes)
-        self.applied = applied
+        self.pending = self.engine.send(writes)
 
     def finish(self) -> None:
         pending, self.pending = self.pending, None
         if pending is not None:
             pending.wait()
-            self.engine.record(*self.applied)
 
     def __exit__(self, kind: object, exc: object, tb: object) -> None:
         if exc is None:
@@ -152,9 +145,9 @@ class _Overlapped:
 
 
 def _flush(engine: Engine, batch: list[Event], stats: ReplayStats, writer: _Overlapped) -> None:
-    times = [event.ts_s for event in batch]
-    first, last = min(times), max(times)
-    writer.submit(engine.router.batch(batch), (len(batch), first, last))
+    writes = engine.router.batch(batch)
+    writer.submit(writes)
+    first, last = writes.first_ts_s, writes.last_ts_s
     stats.applied += len(batch)
     stats.by_kind.update([event.kind for event in batch])
     if stats.first_ts_s is None or first < stats.first_ts_s:

@@ -44,9 +44,8 @@ from windvane.keys import (
     lease_key,
     stream_key,
 )
-from windvane.store.generations import Generations
+from windvane.store.redis_errors import describe, store_errors
 
-_OUTAGES = (redis.exceptions.ConnectionError, redis.exceptions.TimeoutError)
 DEAD_LETTER_MAXLEN = 100_000
 # Entries appended this long before a top-up's start time are read too, for clock skew.
 CLOCK_SKEW_S = 600
@@ -101,11 +100,10 @@ class IngestWorker:
         self.stream = stream
         self.settings = settings
         self.out = out or sys.stderr
-        self.stream_url = stream_url or "the stream"
+        self.stream_url = stream_url or describe(stream)
         self.generation = engine.layout.generation
         self.group = consumer_group(self.generation)
         self.name = settings.name
-        self.generations = Generations(engine.store.client)  # type: ignore[attr-defined]
         self.window = FreshnessWindow()
         self.owned: dict[int, _Shard] = {}
         self._renew = stream.register_script(_RENEW)
@@ -128,7 +126,7 @@ class IngestWorker:
         backoff_s = 0.1
         # Short enough that a passing error never lets this worker's leases lapse.
         max_backoff_s = min(5.0, self.settings.lease_ms / 3000)
-        self.generations.register(self.generation, "stream ingest")
+        self.engine.generations.register(self.generation, "stream ingest")
         while not stop():
             try:
                 self.step()
@@ -136,11 +134,7 @@ class IngestWorker:
                     self._say(f"ingest {self.name}: store and stream answer again; resuming")
                     self._down_since = None
                 backoff_s = 0.1
-            except (
-                StoreError,
-                redis.exceptions.ConnectionError,
-                redis.exceptions.TimeoutError,
-            ) as exc:
+            except StoreError as exc:
                 if self._down_since is None:
                     self._down_since = time.monotonic()
                     self._say(
@@ -152,7 +146,15 @@ class IngestWorker:
         self.release()
 
     def step(self) -> int:
-        """One round: leases, claims or reads, apply, acknowledge. Returns entries handled."""
+        """One round: leases, claims or reads, apply, acknowledge. Returns entries handled.
+
+        Raises only windvane errors: ``StoreUnavailable`` when the store or the stream
+        does not answer, which ``run`` retries.
+        """
+        with store_errors(self.stream_url):
+            return self._step()
+
+    def _step(self) -> int:
         if not self._shards:
             self._shards = shard_count(self.stream)
         self._leases()
@@ -239,8 +241,9 @@ class IngestWorker:
         """
         self._shards = self._shards or shard_count(self.stream)
         numbers = list(self._eligible())
-        for number in numbers:
-            self._ensure_group(number)
+        with store_errors(self.stream_url):
+            for number in numbers:
+                self._ensure_group(number)
         return numbers
 
     def release(self) -> None:
@@ -351,9 +354,7 @@ class IngestWorker:
 
     def write(self, parts: list[tuple[int, list[tuple[str, Event]]]]) -> None:
         """The state write: idempotent per entry, so it may be repeated after any failure."""
-        self.engine.apply_shards(parts)
-        times = [event.ts_s for _, good in parts for _, event in good]
-        self.generations.record_range(self.generation, len(times), min(times), max(times))
+        self.engine.apply_entries(parts)
 
     def acknowledge(self, done: list[tuple[_Shard, list[bytes], list[DeadLetter]]]) -> None:
         """Dead letters first, then the acknowledgements: only after the state write."""
@@ -425,13 +426,14 @@ class IngestWorker:
 
 def read_statuses(client: redis.Redis) -> list[dict[str, Any]]:
     """The last status of every live worker (entries of stopped workers expire)."""
-    names = sorted(_text(n) for n in client.smembers(INGEST_WORKERS_KEY))
-    if not names:
-        return []
-    raws = client.mget([ingest_status_key(n) for n in names])
-    gone = [n for n, raw in zip(names, raws, strict=True) if raw is None]
-    if gone:
-        client.srem(INGEST_WORKERS_KEY, *gone)
+    with store_errors(describe(client)):
+        names = sorted(_text(n) for n in client.smembers(INGEST_WORKERS_KEY))
+        if not names:
+            return []
+        raws = client.mget([ingest_status_key(n) for n in names])
+        gone = [n for n, raw in zip(names, raws, strict=True) if raw is None]
+        if gone:
+            client.srem(INGEST_WORKERS_KEY, *gone)
     return [orjson.loads(raw) for raw in raws if raw is not None]
 
 

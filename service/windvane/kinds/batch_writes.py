@@ -37,8 +37,8 @@ class BatchWrites:
     """``watermark_field`` (such as ``_w3`` for shard 3) turns on per-entry idempotence."""
 
     __slots__ = (
-        "_entry", "_expire_at_ms", "_members", "_segments", "events", "now_ms",
-        "watermark_field",
+        "_entry", "_expire_at_ms", "_members", "_segments", "events", "first_ts_s",
+        "last_ts_s", "now_ms", "watermark_field",
     )  # fmt: skip
 
     def __init__(self, watermark_field: str | None = None) -> None:
@@ -50,7 +50,19 @@ class BatchWrites:
         self._expire_at_ms: dict[str, int] = {}
         self._members: dict[str, tuple[set[str], list[int]]] = {}
         self._entry = ""
+        # The events routed into the batch and their time range, recorded for the
+        # generation once the batch is confirmed (``Engine.send``).
         self.events = 0
+        self.first_ts_s = float("inf")
+        self.last_ts_s = float("-inf")
+
+    def counted(self, ts_s: float) -> None:
+        """One more event of the batch, at event time ``ts_s``."""
+        self.events += 1
+        if ts_s < self.first_ts_s:
+            self.first_ts_s = ts_s
+        if ts_s > self.last_ts_s:
+            self.last_ts_s = ts_s
 
     def begin_entry(self, entry_id: str) -> None:
         """Operations from here on belong to the stream entry ``entry_id`` (``ms-seq``)."""

@@ -25,7 +25,6 @@ from dataclasses import dataclass
 from typing import Any
 
 import orjson
-import redis
 
 from windvane.errors import BadSnapshot, UnknownModel
 from windvane.keys import MODELS_KEY, model_key
@@ -36,6 +35,7 @@ from windvane.models.snapshot import (
     checksum,
     parse_snapshot,
 )
+from windvane.store.base import StateStore
 from windvane.store.redis_errors import store_errors
 
 AUDIT_LENGTH = 1000
@@ -106,13 +106,13 @@ class ActiveSplit:
 class ModelRegistry:
     """Publishes, activates and rolls back model versions; validates before it writes."""
 
-    def __init__(self, client: redis.Redis, features: dict[str, str], url: str = "") -> None:
-        self.client = client
-        self.url = url or "the model registry"
+    def __init__(self, store: StateStore, features: dict[str, str]) -> None:
+        self.client = store.client
+        self.url = store.url
         self.features = features
-        self._publish = client.register_script(_PUBLISH)
-        self._activate = client.register_script(_ACTIVATE)
-        self._rollback = client.register_script(_ROLLBACK)
+        self._publish = self.client.register_script(_PUBLISH)
+        self._activate = self.client.register_script(_ACTIVATE)
+        self._rollback = self.client.register_script(_ROLLBACK)
 
     def publish(
         self, model: str, document: bytes | str | dict[str, Any], by: str, activate: bool = False

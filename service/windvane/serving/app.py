@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
+from importlib import metadata
 from typing import Any
 
 from fastapi import FastAPI
@@ -41,7 +42,7 @@ def create_app(config: ServiceConfig) -> FastAPI:
 
     app = FastAPI(
         title="windvane",
-        version="0.1.0",
+        version=metadata.version("windvane"),
         description=DESCRIPTION.format(deadline_ms=config.deadline_ms),
         lifespan=lifespan,
     )

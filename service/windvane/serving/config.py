@@ -27,6 +27,7 @@ import orjson
 from windvane.errors import BadRequest, UsageError
 from windvane.inputs.deadline import DEFAULT_DEADLINE_MS, check_deadline_ms
 from windvane.serving.reply_cache import MAX_AGE_LIMIT_S
+from windvane.store.url import parse_store_url
 
 ENVIRONMENT_KEY = "WINDVANE_SERVICE_CONFIG"
 
@@ -61,7 +62,7 @@ class ServiceConfig:
     def stream_url(self) -> str | None:
         if self.stream is not None:
             return self.stream
-        return self.store if self.store.startswith(("redis://", "rediss://", "unix://")) else None
+        return None if parse_store_url(self.store).embedded else self.store
 
     def check(self) -> ServiceConfig:
         """Refuse settings that would be unsafe or cannot work, with how to fix them."""
@@ -73,12 +74,13 @@ class ServiceConfig:
             )
         if self.workers < 1:
             raise UsageError("--workers must be at least 1")
-        if self.workers > 1 and self.store.startswith("memory://"):
+        embedded = parse_store_url(self.store).embedded
+        if self.workers > 1 and embedded:
             raise UsageError(
                 "the embedded memory:// store lives inside one process: use --workers 1, or a "
                 "redis:// store for several workers"
             )
-        if self.replay and not self.store.startswith("memory://"):
+        if self.replay and not embedded:
             raise UsageError(
                 "--replay loads the embedded store; use `windvane replay` for redis://"
             )

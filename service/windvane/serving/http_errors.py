@@ -8,7 +8,6 @@ client's mistake.
 from __future__ import annotations
 
 import orjson
-import redis
 
 from windvane.errors import InputError, NotAuthorized, StoreError, UnknownModel, WindvaneError
 
@@ -25,8 +24,6 @@ def error_answer(exc: BaseException) -> tuple[int, bytes, dict[str, str]] | None
         return _answer(401, "authorization", str(exc), {"WWW-Authenticate": "Bearer"})
     if isinstance(exc, StoreError):
         return _answer(503, "", str(exc))
-    if isinstance(exc, redis.exceptions.ConnectionError | redis.exceptions.TimeoutError):
-        return _answer(503, "", f"the store did not answer: {exc}")
     if isinstance(exc, WindvaneError):
         return _answer(400, "", str(exc))
     return None

@@ -16,7 +16,6 @@ import time
 from typing import Any
 
 import orjson
-import redis
 from fastapi import APIRouter, Depends, FastAPI, Query, Request, Response
 from fastapi.exceptions import RequestValidationError
 
@@ -308,7 +307,7 @@ async def health(request: Request) -> Response:
     if state.stream is not None:
         try:
             body["ingest"] = await asyncio.to_thread(read_statuses, state.stream.sync)
-        except (redis.exceptions.ConnectionError, redis.exceptions.TimeoutError):
+        except StoreError:
             body["ingest"] = None
     return _json(body, status=200 if reachable else 503)
 
@@ -323,8 +322,7 @@ def install_error_handlers(app: FastAPI) -> None:
         status, body, headers = answer
         return Response(body, status_code=status, media_type=JSON, headers=headers)
 
-    for kind in (WindvaneError, redis.exceptions.ConnectionError, redis.exceptions.TimeoutError):
-        app.add_exception_handler(kind, mapped)
+    app.add_exception_handler(WindvaneError, mapped)
 
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError) -> Response:

@@ -7,13 +7,10 @@ import gc
 import logging
 from dataclasses import dataclass, field
 
-import redis
-import redis.asyncio
-
 from windvane.definitions.plan import Plan, load_plan
 from windvane.engine import Engine
 from windvane.errors import WindvaneError
-from windvane.ingest.event_stream import DEFAULT_SHARDS, shard_count
+from windvane.ingest.event_stream import EventStream
 from windvane.ingest.rejects import RejectsFile
 from windvane.ingest.replay import replay
 from windvane.keys import KeyLayout
@@ -24,10 +21,9 @@ from windvane.serving.config import ServiceConfig
 from windvane.serving.lookup_service import LookupService
 from windvane.serving.reply_cache import ReplyCache
 from windvane.state.lookup_reader import LookupReader
-from windvane.store import open_store
+from windvane.store import StateStore, open_store
 from windvane.store.async_store import AsyncStateStore
 from windvane.store.generations import Generations
-from windvane.store.redis_store import RedisStateStore
 
 log = logging.getLogger("windvane.service")
 
@@ -60,9 +56,15 @@ class ServiceState:
     async def start(cls, config: ServiceConfig) -> ServiceState:
         plan = load_plan(config.defs)
         store = open_store(config.store)
-        if not isinstance(store, RedisStateStore):
-            raise TypeError("the service needs a Redis-compatible store")
-        generations = Generations(store.client, config.store)
+        try:
+            return await cls._start(config, plan, store)
+        except BaseException:
+            store.close()
+            raise
+
+    @classmethod
+    async def _start(cls, config: ServiceConfig, plan: Plan, store: StateStore) -> ServiceState:
+        generations = Generations(store)
         generation = config.generation or await asyncio.to_thread(generations.active)
         engine = Engine(plan, store, generation)
         if config.replay:
@@ -72,8 +74,11 @@ class ServiceState:
                 "replayed %d events (%d rejected, see %s)", stats.applied, stats.rejected,
                 config.rejects,
             )  # fmt: skip
+        stream = None
+        if config.stream_url:
+            stream = await asyncio.to_thread(EventStream.open, config.stream_url, config.shards)
         shapes = feature_shapes(plan)
-        registry = ModelRegistry(store.client, shapes, config.store)
+        registry = ModelRegistry(store, shapes)
         per_campaign = frozenset(n for n, shape in shapes.items() if shape == "per_campaign")
         models = ModelCache(registry, per_campaign, config.refresh_ms / 1000)
         async_store = AsyncStateStore.open(config.store)
@@ -86,7 +91,6 @@ class ServiceState:
             config.default_model,
         )
         await asyncio.to_thread(local_time.warm_up)
-        stream = await asyncio.to_thread(EventStream.open, config) if config.stream_url else None
         state = cls(
             config, plan, engine, async_store, registry, models, lookups, generations, stream
         )
@@ -131,26 +135,3 @@ class ServiceState:
         if self.stream is not None:
             await self.stream.close()
         self.engine.close()
-
-
-class EventStream:
-    """The service's producer side of the event stream, for ``POST /v1/events``."""
-
-    def __init__(self, sync: redis.Redis, client: redis.asyncio.Redis, shards: int) -> None:
-        self.sync = sync
-        self.client = client
-        self.shards = shards
-
-    @classmethod
-    def open(cls, config: ServiceConfig) -> EventStream:
-        url = config.stream_url or ""
-        sync = redis.Redis.from_url(url, socket_timeout=5, socket_connect_timeout=5)
-        try:
-            shards = shard_count(sync, config.shards)
-        except (redis.exceptions.ConnectionError, redis.exceptions.TimeoutError):
-            shards = config.shards or DEFAULT_SHARDS
-        return cls(sync, redis.asyncio.Redis.from_url(url, socket_timeout=5), shards)
-
-    async def close(self) -> None:
-        await self.client.aclose()
-        self.sync.close()

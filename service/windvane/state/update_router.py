@@ -93,7 +93,7 @@ class UpdateRouter:
         writes = BatchWrites()
         for event in events:
             self.add(event, writes)
-            writes.events += 1
+            writes.counted(event.ts_s)
         return writes
 
     def batch_entries(self, shard: int, entries: Iterable[tuple[str, Event]]) -> BatchWrites:
@@ -102,5 +102,5 @@ class UpdateRouter:
         for entry_id, event in entries:
             writes.begin_entry(entry_id)
             self.add(event, writes)
-            writes.events += 1
+            writes.counted(event.ts_s)
         return writes

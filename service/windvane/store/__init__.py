@@ -1,53 +1,34 @@
-"""State store backends, chosen by URL.
+"""State store backends, chosen by URL (``store.url``).
 
 - ``memory://`` (or ``memory://NAME``): an embedded store in this process (fakeredis),
   the default, for demos, tests and single-process runs. Stores with the same name in
   one process share their data.
 - ``redis://host:port/db`` (``rediss://`` for TLS, ``unix:///path.sock``): a real server.
+
+Every Redis error is turned into windvane's own (``store.redis_errors``) before it
+leaves this package or the stream modules that use its clients.
 """
 
 from __future__ import annotations
 
-from urllib.parse import urlsplit
-
-import fakeredis
-import redis
-
-from windvane.errors import StoreError
 from windvane.store.base import StateStore
+from windvane.store.clients import memory_server, redis_client
 from windvane.store.redis_store import RedisStateStore
+from windvane.store.url import StoreURL, parse_store_url
 
-_MEMORY_SERVERS: dict[str, fakeredis.FakeServer] = {}
 # The embedded store compiles the script on every call, so it gets many keys per call.
 MEMORY_KEYS_PER_CALL = 1000
 
 
-def memory_server(name: str) -> fakeredis.FakeServer:
-    """The process-wide embedded server of that name, created on first use."""
-    server = _MEMORY_SERVERS.get(name)
-    if server is None:
-        server = _MEMORY_SERVERS[name] = fakeredis.FakeServer()
-    return server
-
-
-def open_store(url: str, timeout_s: float = 5.0) -> StateStore:
+def open_store(url: str | StoreURL, timeout_s: float = 5.0) -> StateStore:
     """Open the store at ``url``; raises ``StoreError`` for a URL it cannot use."""
-    scheme = urlsplit(url).scheme
-    if scheme == "memory":
-        name = url[len("memory://") :].strip("/") or "default"
-        client = fakeredis.FakeRedis(server=memory_server(name))
+    parsed = parse_store_url(url)
+    client = redis_client(parsed, timeout_s)
+    if parsed.embedded:
         return RedisStateStore(
-            client, url, keys_per_call=MEMORY_KEYS_PER_CALL, args_per_call=1_000_000
+            client, parsed.text, keys_per_call=MEMORY_KEYS_PER_CALL, args_per_call=1_000_000
         )
-    if scheme in ("redis", "rediss", "unix"):
-        try:
-            client = redis.Redis.from_url(
-                url, socket_timeout=timeout_s, socket_connect_timeout=timeout_s
-            )
-        except ValueError as exc:
-            raise StoreError(f"cannot use store URL {url!r}: {exc}") from None
-        return RedisStateStore(client, url)
-    raise StoreError(f"cannot use store URL {url!r}: expected memory:// or redis://host:port/db")
+    return RedisStateStore(client, parsed.text)
 
 
-__all__ = ["StateStore", "open_store"]
+__all__ = ["StateStore", "StoreURL", "memory_server", "open_store", "parse_store_url"]

@@ -9,44 +9,27 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from typing import Any
-from urllib.parse import urlsplit
 
-import fakeredis
 import redis.asyncio
-from redis.asyncio.retry import Retry
-from redis.backoff import NoBackoff
 
-from windvane.errors import StoreError
-from windvane.store import memory_server
+from windvane.store.clients import async_redis_client
 from windvane.store.redis_errors import store_errors
+from windvane.store.url import StoreURL, parse_store_url
 
 
 class AsyncStateStore:
     def __init__(self, client: redis.asyncio.Redis, url: str) -> None:
-        self.client = client
+        self._client = client
         self.url = url
 
     @classmethod
-    def open(cls, url: str, timeout_s: float = 1.0) -> AsyncStateStore:
-        scheme = urlsplit(url).scheme
-        if scheme == "memory":
-            name = url[len("memory://") :].strip("/") or "default"
-            return cls(fakeredis.FakeAsyncRedis(server=memory_server(name)), url)
-        if scheme in ("redis", "rediss", "unix"):
-            client = redis.asyncio.Redis.from_url(
-                url,
-                socket_timeout=timeout_s,
-                socket_connect_timeout=timeout_s,
-                retry=Retry(NoBackoff(), 0),
-            )
-            return cls(client, url)
-        raise StoreError(
-            f"cannot use store URL {url!r}: expected memory:// or redis://host:port/db"
-        )
+    def open(cls, url: str | StoreURL, timeout_s: float = 1.0) -> AsyncStateStore:
+        parsed = parse_store_url(url)
+        return cls(async_redis_client(parsed, timeout_s, retry=False), parsed.text)
 
     async def read(self, commands: Sequence[tuple[Any, ...]]) -> list[Any]:
         """Run the commands in one pipelined round trip; answers in order."""
-        pipe = self.client.pipeline(transaction=False)
+        pipe = self._client.pipeline(transaction=False)
         for command in commands:
             pipe.execute_command(*command)
         with store_errors(self.url):
@@ -54,7 +37,7 @@ class AsyncStateStore:
 
     async def ping(self) -> bool:
         with store_errors(self.url):
-            return bool(await self.client.ping())
+            return bool(await self._client.ping())
 
     async def close(self) -> None:
-        await self.client.aclose()
+        await self._client.aclose()

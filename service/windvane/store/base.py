@@ -10,6 +10,8 @@ from abc import ABC, abstractmethod
 from collections.abc import Iterator, Sequence
 from typing import Any
 
+import redis
+
 from windvane.kinds.batch_writes import BatchWrites
 
 
@@ -25,7 +27,12 @@ class PendingWrites(ABC):
 
 
 class StateStore(ABC):
+    """``client`` is the store's Redis connection, for the parts of this package (and the
+    model registry) that keep keys of their own beside the feature state; they translate
+    its errors with ``store_errors`` as this class does."""
+
     url: str
+    client: redis.Redis
 
     def apply(self, *batches: BatchWrites) -> None:
         """Send every write of the batches in one pipelined round trip and wait for it."""

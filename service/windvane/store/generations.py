@@ -8,14 +8,11 @@ serving process picks up within a second; the old generation stays until dropped
 from __future__ import annotations
 
 import time
-from collections.abc import Iterable
 from typing import Any
 
 import orjson
-import redis
 
 from windvane.errors import UsageError
-from windvane.inputs.events import Event
 from windvane.keys import (
     ACTIVE_GENERATION_KEY,
     DEFAULT_GENERATION,
@@ -24,6 +21,7 @@ from windvane.keys import (
     check_generation,
     generation_stats_key,
 )
+from windvane.store.base import StateStore
 from windvane.store.redis_errors import store_errors
 
 _RECORD_STATS = """
@@ -41,10 +39,12 @@ return 1
 
 
 class Generations:
-    def __init__(self, client: redis.Redis, url: str = "") -> None:
-        self.client = client
-        self.url = url or "the store"
-        self._record = client.register_script(_RECORD_STATS)
+    """The generations kept in one store; every method raises only windvane errors."""
+
+    def __init__(self, store: StateStore) -> None:
+        self.client = store.client
+        self.url = store.url
+        self._record = self.client.register_script(_RECORD_STATS)
 
     def active(self) -> str:
         with store_errors(self.url):
@@ -58,27 +58,22 @@ class Generations:
         with store_errors(self.url):
             self.client.hsetnx(GENERATIONS_KEY, name, orjson.dumps(meta))
 
-    def record(self, name: str, events: Iterable[Event]) -> None:
-        """Count applied events and widen the generation's event-time range."""
-        times = [event.ts_s for event in events]
-        if times:
-            self.record_range(name, len(times), min(times), max(times))
-
     def record_range(self, name: str, count: int, first_ts: float, last_ts: float) -> None:
-        """``record`` for a caller that already knows the count and the time range."""
+        """Count applied events and widen the generation's event-time range."""
         if count:
             with store_errors(self.url):
                 self._record(keys=[generation_stats_key(name)], args=[count, first_ts, last_ts])
 
     def list(self) -> list[dict[str, Any]]:
         active = self.active()
-        names = {
-            n.decode(): orjson.loads(v) for n, v in self.client.hgetall(GENERATIONS_KEY).items()
-        }
+        with store_errors(self.url):
+            known = self.client.hgetall(GENERATIONS_KEY)
+        names = {n.decode(): orjson.loads(v) for n, v in known.items()}
         names.setdefault(active, {"name": active, "created_at": None, "source": "default"})
         rows = []
         for name in sorted(names):
-            stats = self.client.hgetall(generation_stats_key(name))
+            with store_errors(self.url):
+                stats = self.client.hgetall(generation_stats_key(name))
             rows.append({
                 **names[name],
                 "active": name == active,
@@ -90,10 +85,11 @@ class Generations:
 
     def activate(self, name: str) -> None:
         check_generation(name)
-        known = self.client.hexists(GENERATIONS_KEY, name) or name == DEFAULT_GENERATION
-        if not known:
-            raise UsageError(f"no generation named {name!r}; see `windvane generations`")
-        self.client.set(ACTIVE_GENERATION_KEY, name)
+        with store_errors(self.url):
+            known = self.client.hexists(GENERATIONS_KEY, name) or name == DEFAULT_GENERATION
+            if not known:
+                raise UsageError(f"no generation named {name!r}; see `windvane generations`")
+            self.client.set(ACTIVE_GENERATION_KEY, name)
 
     def drop(self, name: str, batch: int = 500) -> int:
         """Delete every key of a generation (never the active one); returns how many."""
@@ -102,13 +98,14 @@ class Generations:
             raise UsageError(f"{name!r} is the active generation; activate another one first")
         deleted = 0
         keys: list[bytes] = []
-        for key in self.client.scan_iter(match=KeyLayout(name).pattern(), count=1000):
-            keys.append(key)
-            if len(keys) >= batch:
+        with store_errors(self.url):
+            for key in self.client.scan_iter(match=KeyLayout(name).pattern(), count=1000):
+                keys.append(key)
+                if len(keys) >= batch:
+                    deleted += self.client.unlink(*keys)
+                    keys = []
+            if keys:
                 deleted += self.client.unlink(*keys)
-                keys = []
-        if keys:
-            deleted += self.client.unlink(*keys)
-        self.client.hdel(GENERATIONS_KEY, name)
-        self.client.delete(generation_stats_key(name))
+            self.client.hdel(GENERATIONS_KEY, name)
+            self.client.delete(generation_stats_key(name))
         return deleted

@@ -8,6 +8,7 @@ import math
 import pytest
 
 from tests.conftest import FEATUREDEFS
+from tests.support import GOOD_SNAPSHOT
 from windvane.definitions.plan import load_plan
 from windvane.errors import BadSnapshot, UnknownModel
 from windvane.models.registry import Arm, ModelRegistry
@@ -18,33 +19,15 @@ from windvane.store import open_store
 
 SHAPES = feature_shapes(load_plan(FEATUREDEFS))
 
-GOOD = {
-    "version": "v1",
-    "intercept": -3.0,
-    "terms": [
-        {"name": "ctr", "feature": "app_ctr", "transforms": ["log1p"], "weight": 20.0},
-        {
-            "name": "frac",
-            "feature": "screen_fraction",
-            "transforms": [{"clip": [0, 1]}, {"standardize": {"mean": 0.1, "scale": 0.2}}],
-            "weight": 0.5,
-            "default": 0.0,
-        },
-        {"name": "freq", "feature": "imps_1h", "weight": -0.2, "default": 0.0},
-        {"name": "evening", "indicator": {"feature": "local_hour", "value": 21}, "weight": 0.3},
-        {"name": "ctr_x_frac", "product": ["ctr", "frac"], "weight": 1.5, "default": -0.1},
-    ],
-}
-
 
 def registry(store_url: str) -> ModelRegistry:
     store = open_store(store_url)
-    return ModelRegistry(store.client, SHAPES, store_url)  # type: ignore[attr-defined]
+    return ModelRegistry(store, SHAPES)
 
 
 def variant(path: str, value: object) -> dict:
-    """GOOD with one value replaced: path like 'terms.1.weight'."""
-    doc = copy.deepcopy(GOOD)
+    """GOOD_SNAPSHOT with one value replaced: path like 'terms.1.weight'."""
+    doc = copy.deepcopy(GOOD_SNAPSHOT)
     *parents, last = path.split(".")
     target: object = doc
     for part in parents:
@@ -86,7 +69,7 @@ def test_bad_snapshots_are_refused_naming_the_term(
     store_url: str, document: dict, field: str, words: str
 ) -> None:
     models = registry(store_url)
-    models.publish("ctr", dict(GOOD), "test", activate=True)
+    models.publish("ctr", dict(GOOD_SNAPSHOT), "test", activate=True)
     before = (models.history("ctr"), models.active("ctr"), models.audit("ctr"))
     with pytest.raises(BadSnapshot) as err:
         models.publish(
@@ -102,9 +85,9 @@ def test_bad_snapshots_are_refused_naming_the_term(
 
 def test_version_must_be_new_and_json_must_parse(store_url: str) -> None:
     models = registry(store_url)
-    models.publish("ctr", GOOD, "test", activate=True)
+    models.publish("ctr", GOOD_SNAPSHOT, "test", activate=True)
     with pytest.raises(BadSnapshot) as err:
-        models.publish("ctr", GOOD, "test")
+        models.publish("ctr", GOOD_SNAPSHOT, "test")
     assert (err.value.field, err.value.reason) == (
         "version",
         "version 'v1' of model 'ctr' already exists",
@@ -125,8 +108,8 @@ def test_version_must_be_new_and_json_must_parse(store_url: str) -> None:
 
 def test_activate_split_and_rollback(store_url: str) -> None:
     models = registry(store_url)
-    models.publish("ctr", GOOD, "ana", activate=True)
-    models.publish("ctr", {**GOOD, "version": "v2", "intercept": -2.5}, "ben")
+    models.publish("ctr", GOOD_SNAPSHOT, "ana", activate=True)
+    models.publish("ctr", {**GOOD_SNAPSHOT, "version": "v2", "intercept": -2.5}, "ben")
     split = models.activate("ctr", [Arm("v1", 90), Arm("v2", 10)], "ana")
     assert [(a.version, a.weight) for a in models.active("ctr").arms] == [("v1", 90), ("v2", 10)]
     assert split.by == "ana"
@@ -155,7 +138,7 @@ def test_activate_split_and_rollback(store_url: str) -> None:
 
 
 def test_scoring_follows_the_documented_terms() -> None:
-    scorer = Scorer(parse_snapshot(GOOD), frozenset({"imps_1h"}))
+    scorer = Scorer(parse_snapshot(GOOD_SNAPSHOT), frozenset({"imps_1h"}))
     shared = {"app_ctr": 0.01, "screen_fraction": 1.4, "local_hour": 21}
     ctr, frac = math.log1p(0.01), (1.0 - 0.1) / 0.2
     # reference: the logistic function of the intercept plus weighted terms, written out

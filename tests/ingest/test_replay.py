@@ -4,60 +4,16 @@ from __future__ import annotations
 
 import gzip
 import random
-import time
 from pathlib import Path
 
 import orjson
 import pytest
 
 from tests.conftest import FEATUREDEFS
-from tests.support import dump_state, engine_for
+from tests.support import BAD_LINES, dump_state, engine_for, good_lines
 from windvane.ingest.rejects import RejectsFile
 from windvane.ingest.replay import replay
 from windvane.store import open_store
-
-NOW = round(time.time())
-
-
-def good_lines(count: int, seed: int = 3) -> list[bytes]:
-    rng = random.Random(seed)
-    lines = []
-    for n in range(count):
-        kind = rng.choice(["request", "bid", "win", "impression", "click"])
-        record = {
-            "kind": kind,
-            "ts": NOW - 3600 + n,
-            "id": f"auction-{n}",
-            "user": f"user-{rng.randrange(20)}",
-            "app": f"app-{rng.randrange(4)}",
-            "campaign": f"camp-{rng.randrange(3)}",
-            "slot": {"w": 320, "h": 50},
-            "device": {"w": 1080, "h": 1920, "pxratio": 3, "lmt": 0},
-        }
-        if kind in ("bid", "win"):
-            record["price"] = 1.25
-        lines.append(orjson.dumps(record))
-    return lines
-
-
-# Each malformed line with the field its rejection must name.
-BAD_LINES = [
-    (b'{"kind": "request", "ts": 17', ""),  # truncated JSON
-    (b'{"kind": "bidd", "ts": 1796000000, "id": "x"}', "kind"),
-    (b'{"kind": "request", "id": "x", "user": "u"}', "ts"),
-    (b'{"kind": "request", "ts": "yesterday", "id": "x"}', "ts"),
-    (b'{"kind": "request", "ts": "2026-12-01T10:00:00", "id": "x"}', "ts"),  # no offset
-    (b'{"kind": "bid", "ts": 1796000000, "id": "x", "app": "a", "price": -0.5}', "price"),
-    (b'{"kind": "request", "ts": 1796000000, "id": "x", "slot": {"w": "wide", "h": 50}}', "slot.w"),
-    (
-        b'{"kind": "request", "ts": 1796000000, "id": "x", "device": {"w": 1080, "h": "tall"}}',
-        "device.h",
-    ),
-    (b'{"kind": "request", "ts": 1796000000, "user": "u"}', "id"),
-    (b'["kind", "request"]', ""),
-    (b'{"kind": "request", "ts": 1796000000000, "id": "x"}', "ts"),  # milliseconds
-    (b'{"kind": "click", "ts": 1796000000, "id": "x", "user": "a{b}"}', "user"),
-]
 
 
 def test_bad_lines_are_rejected_whole_and_the_rest_applied(store_url: str, tmp_path: Path) -> None:

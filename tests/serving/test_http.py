@@ -13,9 +13,7 @@ import pytest
 
 from tests.conftest import FEATUREDEFS
 from tests.service_process import ServiceProcess
-from tests.support import engine_for
-from tests.test_replay import good_lines
-from tests.test_snapshots import GOOD
+from tests.support import GOOD_SNAPSHOT, engine_for, good_lines, wait_until
 from windvane.engine import Engine
 from windvane.ingest.rejects import RejectsFile
 from windvane.ingest.replay import replay
@@ -158,12 +156,12 @@ def test_publish_split_score_and_rollback_over_http(
     first = httpx.post(
         f"{url}/v1/models/http-ctr/snapshots",
         params={"activate": "true"},
-        json=GOOD,
+        json=GOOD_SNAPSHOT,
         headers=AUTH,
         timeout=5,
     )
     assert first.status_code == 201, first.text
-    second = {**GOOD, "version": "v2", "intercept": -1.0}
+    second = {**GOOD_SNAPSHOT, "version": "v2", "intercept": -1.0}
     assert (
         httpx.post(
             f"{url}/v1/models/http-ctr/snapshots", json=second, headers=AUTH, timeout=5
@@ -178,7 +176,7 @@ def test_publish_split_score_and_rollback_over_http(
     )
     assert split.status_code == 200, split.text
     scorers = {
-        "v1": Scorer(parse_snapshot(GOOD), frozenset({"imps_1h"})),
+        "v1": Scorer(parse_snapshot(GOOD_SNAPSHOT), frozenset({"imps_1h"})),
         "v2": Scorer(parse_snapshot(second), frozenset({"imps_1h"})),
     }
     arms: dict[str, str] = {}
@@ -222,9 +220,9 @@ def test_activation_reaches_every_worker_within_a_second(redis_server, loaded: E
     from windvane.models.registry import Arm, ModelRegistry
     from windvane.serving.state import feature_shapes
 
-    registry = ModelRegistry(loaded.store.client, feature_shapes(loaded.plan))  # type: ignore[attr-defined]
-    registry.publish("fleet", {**GOOD, "version": "a"}, "test", activate=True)
-    registry.publish("fleet", {**GOOD, "version": "b"}, "test")
+    registry = ModelRegistry(loaded.store, feature_shapes(loaded.plan))
+    registry.publish("fleet", {**GOOD_SNAPSHOT, "version": "a"}, "test", activate=True)
+    registry.publish("fleet", {**GOOD_SNAPSHOT, "version": "b"}, "test")
     with (
         ServiceProcess(
             "--store",
@@ -244,14 +242,25 @@ def test_activation_reaches_every_worker_within_a_second(redis_server, loaded: E
             client.post("/v1/lookup", json=request).json()["model"]["version"] for _ in range(20)
         } == {"a"}
         registry.activate("fleet", [Arm("b", 100)], "test")
-        time.sleep(1.0)
-        # Connection: close makes every request a new connection, spread over both workers.
-        close = {"Connection": "close"}
-        versions, pids = set(), set()
-        for _ in range(60):
-            answer = client.post("/v1/lookup", json=request, headers=close).json()
-            versions.add(answer["model"]["version"])
-            pids.add(client.get("/v1/health", headers=close).json()["pid"])
+
+        def sample() -> tuple[set[str], set[int]]:
+            """The versions answered and the workers that answered, over 60 lookups."""
+            # Connection: close makes every request a new connection, spread over both workers.
+            close = {"Connection": "close"}
+            versions, pids = set(), set()
+            for _ in range(60):
+                answer = client.post("/v1/lookup", json=request, headers=close).json()
+                versions.add(answer["model"]["version"])
+                pids.add(client.get("/v1/health", headers=close).json()["pid"])
+            return versions, pids
+
+        def switched() -> bool:
+            versions, pids = sample()
+            return versions == {"b"} and len(pids) == 2
+
+        # Every worker follows the activation within a second.
+        wait_until(switched, timeout_s=1.0)
+        versions, pids = sample()
         assert len(pids) == 2
         assert versions == {"b"}
 

@@ -20,9 +20,7 @@ import httpx
 from tests.conftest import FEATUREDEFS
 from tests.redis_server import RedisServer
 from tests.service_process import ServiceProcess
-from tests.support import engine_for
-from tests.test_replay import good_lines
-from tests.test_snapshots import GOOD
+from tests.support import GOOD_SNAPSHOT, engine_for, good_lines, wait_until
 from windvane.ingest.rejects import RejectsFile
 from windvane.ingest.replay import replay
 from windvane.models.registry import ModelRegistry
@@ -43,9 +41,9 @@ def test_lookups_answer_in_time_when_the_store_freezes_or_stops(tmp_path: Path) 
         log.write_bytes(b"\n".join(good_lines(600)) + b"\n")
         with RejectsFile(tmp_path / "rejects.jsonl") as rejects:
             replay(engine, [str(log)], rejects)
-        registry = ModelRegistry(engine.store.client, feature_shapes(engine.plan))  # type: ignore[attr-defined]
-        registry.publish("ctr", GOOD, "test", activate=True)
-        scorer = Scorer(parse_snapshot(GOOD), frozenset({"imps_1h"}))
+        registry = ModelRegistry(engine.store, feature_shapes(engine.plan))
+        registry.publish("ctr", GOOD_SNAPSHOT, "test", activate=True)
+        scorer = Scorer(parse_snapshot(GOOD_SNAPSHOT), frozenset({"imps_1h"}))
         request = {
             "user": "user-3",
             "app": "app-1",
@@ -74,19 +72,27 @@ def test_lookups_answer_in_time_when_the_store_freezes_or_stops(tmp_path: Path) 
 
             os.kill(server.process.pid, signal.SIGSTOP)  # type: ignore[union-attr]
             frozen = True
-            time.sleep(1.1)  # cached app state is at most 1 s old, so it has aged out
+            # A sleep, not a wait: cached app state is at most 1 s old, so after 1.1 s it has
+            # aged out and every answer below must come from the frozen store.
+            time.sleep(1.1)
             for _ in range(10):
                 check_missing(client.post("/v1/lookup", json=request), healthy, scorer)
             os.kill(server.process.pid, signal.SIGCONT)  # type: ignore[union-attr]
             frozen = False
 
-            recovered = wait_for(
-                lambda: client.post("/v1/lookup", json={**request, "deadline_ms": 3000})
+            answers: list[httpx.Response] = []
+
+            def recovered() -> bool:
+                answers.append(client.post("/v1/lookup", json={**request, "deadline_ms": 3000}))
+                return answers[-1].json()["stored"] == "ok"
+
+            assert wait_until(recovered, timeout_s=10, step_s=0.05), (
+                "the service did not recover after the store came back"
             )
-            assert recovered.json()["features"] == healthy["features"]
+            assert answers[-1].json()["features"] == healthy["features"]
 
             server.stop()
-            time.sleep(1.1)
+            time.sleep(1.1)  # a sleep, not a wait: the cached app state ages out, as above
             for _ in range(10):
                 check_missing(client.post("/v1/lookup", json=request), healthy, scorer)
             health = client.get("/v1/health")
@@ -108,12 +114,3 @@ def check_missing(response: httpx.Response, healthy: dict, scorer: Scorer) -> No
     # Scores fall back to each term's default for a missing feature.
     assert body["scores"]["camp-0"] == scorer.score(body["features"], body["campaigns"]["camp-0"])
     assert body["scores"]["camp-0"] != healthy["scores"]["camp-0"]
-
-
-def wait_for(call, attempts: int = 60) -> httpx.Response:  # type: ignore[no-untyped-def]
-    for _ in range(attempts):
-        response = call()
-        if response.json()["stored"] == "ok":
-            return response
-        time.sleep(0.05)
-    raise AssertionError("the service did not recover after the store came back")

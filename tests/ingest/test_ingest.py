@@ -5,7 +5,6 @@ from __future__ import annotations
 import io
 import random
 import time
-from collections.abc import Callable
 from pathlib import Path
 
 import httpx
@@ -16,7 +15,7 @@ from tests.conftest import FEATUREDEFS
 from tests.ingest_process import IngestProcess
 from tests.redis_server import RedisServer
 from tests.service_process import ServiceProcess
-from tests.support import compare_generations, engine_for, event
+from tests.support import compare_generations, engine_for, event, wait_until
 from windvane.engine import Engine
 from windvane.ingest.event_stream import append, shard_count, shard_of
 from windvane.ingest.rejects import RejectsFile
@@ -29,15 +28,6 @@ from windvane_demo.generate import build_log, write_lines
 
 TOKEN = "ingest-token"
 FAST = ("--lease-ms", "1000", "--claim-idle-ms", "1000", "--status-every", "1")
-
-
-def wait_until(check: Callable[[], bool], timeout_s: float, step_s: float = 0.02) -> bool:
-    deadline = time.monotonic() + timeout_s
-    while time.monotonic() < deadline:
-        if check():
-            return True
-        time.sleep(step_s)
-    return check()
 
 
 def drained(client: redis.Redis, group: str = "gen-main") -> bool:
@@ -183,6 +173,7 @@ def test_sigkilled_workers_leave_exactly_the_state_of_a_clean_replay(tmp_path: P
         every = list(workers)
         # Kill a worker that is up and working at a random moment, again and again.
         while not drained(client) and kills < 60:
+            # A sleep, not a wait: the random pause is what makes the kill moments random.
             time.sleep(rng.uniform(0.1, 0.6))
             ready = [n for n, w in enumerate(workers) if time.monotonic() - w.started_s > 1.5]
             if not ready:
@@ -234,6 +225,8 @@ def test_store_restart_during_ingest_loses_and_doubles_nothing(
                 lambda backlog=backlog, client=client: unread(client) < backlog - 1000,
                 timeout_s=30,
             )
+            # Sleeps, not waits: a random moment to crash at, then an outage that lasts
+            # real time so the worker meets an unreachable store.
             time.sleep(rng.uniform(0.0, 0.05))
             if outage == len(chunks) - 1:
                 server.stop()
@@ -337,10 +330,11 @@ def test_generation_rebuild_never_disturbs_lookups_until_the_switch(
         assert expected_after != expected_before
         from windvane.store.generations import Generations
 
-        generations = Generations(open_store(url).client)  # type: ignore[attr-defined]
+        generations = Generations(open_store(url))
         assert {g["name"] for g in generations.list()} == {"main", "g2"}
         generations.activate("g2")
-        time.sleep(1.0)
+        # The service follows the active generation within a second.
+        wait_until(lambda: answers() == expected_after, timeout_s=1.0)
         assert answers() == expected_after
         assert client.get("/v1/health").json()["generation"] == "g2"
         dropped = generations.drop("main")

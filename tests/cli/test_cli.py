@@ -12,7 +12,7 @@ import orjson
 
 from tests.conftest import FEATUREDEFS, ROOT
 from tests.redis_server import free_port
-from tests.test_replay import BAD_LINES, good_lines
+from tests.support import BAD_LINES, good_lines
 
 NOW = round(time.time())
 

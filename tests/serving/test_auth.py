@@ -10,7 +10,7 @@ import httpx
 
 from tests.conftest import FEATUREDEFS, ROOT
 from tests.service_process import ServiceProcess
-from tests.test_snapshots import GOOD
+from tests.support import GOOD_SNAPSHOT
 from windvane.models.registry import ModelRegistry
 from windvane.store import open_store
 
@@ -19,13 +19,13 @@ TOKEN = "s3cret-token"
 
 def registry_state(url: str) -> tuple:
     store = open_store(url)
-    models = ModelRegistry(store.client, {})  # type: ignore[attr-defined]
+    models = ModelRegistry(store, {})
     return tuple((m, models.history(m), models.active(m), models.audit(m)) for m in models.models())
 
 
 WRITES = [
-    ("post", "/v1/models/ctr/snapshots", {**GOOD, "version": "v9"}),
-    ("post", "/v1/models/ctr/snapshots?activate=true", {**GOOD, "version": "v9"}),
+    ("post", "/v1/models/ctr/snapshots", {**GOOD_SNAPSHOT, "version": "v9"}),
+    ("post", "/v1/models/ctr/snapshots?activate=true", {**GOOD_SNAPSHOT, "version": "v9"}),
     ("post", "/v1/models/ctr/activate", {"arms": [{"version": "v1", "weight": 1}]}),
     ("post", "/v1/models/ctr/rollback", None),
 ]
@@ -48,7 +48,7 @@ def test_writes_without_the_token_are_refused(redis_server) -> None:
     ) as svc:
         good = {"Authorization": f"Bearer {TOKEN}"}
         created = httpx.post(
-            f"{svc.url}/v1/models/ctr/snapshots", json=GOOD, headers=good, timeout=5
+            f"{svc.url}/v1/models/ctr/snapshots", json=GOOD_SNAPSHOT, headers=good, timeout=5
         )
         assert created.status_code == 201
         before = registry_state(redis_server.url)
