@@ -9,36 +9,38 @@ and documents the endpoint in the OpenAPI document, so there is one implementati
 from __future__ import annotations
 
 import time
-from typing import Any
 
 import orjson
+from fastapi import FastAPI
+from starlette.types import Receive, Scope, Send
 
 from windvane.inputs.deadline import DEADLINE_HEADER_BYTES, header_deadline_ms
 from windvane.inputs.lookup_request import decode_lookup_body
 from windvane.serving.http_errors import JSON, error_answer
+from windvane.serving.lookup_service import LookupService
 
 LOOKUP_PATH = "/v1/lookup"
 
 
 async def answer_lookup(
-    state: Any, body: bytes, deadline_header: bytes | None, started_s: float
+    lookups: LookupService, body: bytes, deadline_header: bytes | None, started_s: float
 ) -> bytes:
     """The answer to one lookup body; raises windvane errors for the caller to map."""
     call = decode_lookup_body(body)
     deadline_ms = call.deadline_ms
     if deadline_ms is None:
         deadline_ms = header_deadline_ms(deadline_header)
-    answer = await state.lookups.lookup(call, call.model, deadline_ms, started_s)
+    answer = await lookups.lookup(call, call.model, deadline_ms, started_s)
     return orjson.dumps(answer)
 
 
 class FastLookup:
     """ASGI middleware that serves ``POST /v1/lookup`` without the framework's layers."""
 
-    def __init__(self, app: Any) -> None:
+    def __init__(self, app: FastAPI) -> None:
         self.app = app
 
-    async def __call__(self, scope: dict[str, Any], receive: Any, send: Any) -> None:
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] != "http" or scope["path"] != LOOKUP_PATH or scope["method"] != "POST":
             await self.app(scope, receive, send)
             return
@@ -55,7 +57,8 @@ class FastLookup:
                 deadline = value
         status, headers = 200, [(b"content-type", JSON.encode())]
         try:
-            body = await answer_lookup(self.app.state.windvane, b"".join(chunks), deadline, started)
+            lookups = self.app.state.windvane.lookups
+            body = await answer_lookup(lookups, b"".join(chunks), deadline, started)
         except Exception as exc:
             mapped = error_answer(exc)
             if mapped is None:

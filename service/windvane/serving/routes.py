@@ -100,7 +100,7 @@ async def lookup(request: Request) -> Response:
     started = time.perf_counter()
     header = request.headers.get(DEADLINE_HEADER)
     body = await answer_lookup(
-        _state(request), await request.body(), header.encode() if header else None, started
+        _state(request).lookups, await request.body(), header.encode() if header else None, started
     )
     return Response(body, media_type=JSON)
 
