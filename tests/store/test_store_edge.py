@@ -26,9 +26,10 @@ from windvane.ingest.event_stream import (
     append,
     drop_consumer_groups,
     open_stream,
+    read_statuses,
     shard_count,
 )
-from windvane.ingest.worker import IngestSettings, IngestWorker, read_statuses
+from windvane.ingest.worker import IngestSettings, IngestWorker
 from windvane.inputs.events import parse_event
 from windvane.keys import INGEST_WORKERS_KEY, MODELS_KEY, SHARD_COUNT_KEY
 from windvane.models.registry import Arm, ModelRegistry

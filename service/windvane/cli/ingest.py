@@ -27,7 +27,7 @@ from windvane.ingest.rejects import RejectsFile
 from windvane.ingest.worker import IngestSettings, IngestWorker
 from windvane.inputs.events import parse_event_line
 from windvane.keys import check_generation
-from windvane.store import open_store
+from windvane.store import open_store, parse_store_url
 from windvane.store.generations import Generations
 
 
@@ -206,7 +206,9 @@ def _generation_action(args: argparse.Namespace, generations: Generations) -> in
         sys.stdout.write(f"{args.name} is now the active generation\n")
     else:
         deleted = generations.drop(args.name)
-        drop_consumer_groups(generations.client, args.name)
+        if not parse_store_url(args.store).embedded:
+            with contextlib.closing(open_stream(args.store)) as stream:
+                drop_consumer_groups(stream, args.name)
         sys.stdout.write(f"dropped generation {args.name}: {deleted:,} keys deleted\n")
     return 0
 

@@ -22,7 +22,13 @@ import redis.asyncio
 
 from windvane.errors import BadEvent, StoreUnavailable, UsageError
 from windvane.inputs.events import Event, parse_event
-from windvane.keys import SHARD_COUNT_KEY, consumer_group, stream_key
+from windvane.keys import (
+    INGEST_WORKERS_KEY,
+    SHARD_COUNT_KEY,
+    consumer_group,
+    ingest_status_key,
+    stream_key,
+)
 from windvane.store.clients import async_redis_client, redis_client
 from windvane.store.redis_errors import describe, store_errors
 from windvane.store.url import server_url
@@ -147,6 +153,21 @@ def drop_consumer_groups(client: redis.Redis, generation: str) -> None:
                 continue  # that shard never had the group
 
 
+def read_statuses(client: redis.Redis) -> list[dict[str, Any]]:
+    """The last status of every live worker (entries of stopped workers expire)."""
+    with store_errors(describe(client)):
+        names = sorted(
+            (n.decode() if isinstance(n, bytes) else n) for n in client.smembers(INGEST_WORKERS_KEY)
+        )
+        if not names:
+            return []
+        raws = client.mget([ingest_status_key(n) for n in names])
+        gone = [n for n, raw in zip(names, raws, strict=True) if raw is None]
+        if gone:
+            client.srem(INGEST_WORKERS_KEY, *gone)
+    return [orjson.loads(raw) for raw in raws if raw is not None]
+
+
 class EventStream:
     """The producer side of the event stream, for ``POST /v1/events`` of the service."""
 
@@ -165,6 +186,13 @@ class EventStream:
         except StoreUnavailable:
             count = shards or DEFAULT_SHARDS
         return cls(sync, async_redis_client(parsed, 5.0), count)
+
+    async def append(self, entries: Iterable[tuple[int, bytes]]) -> list[str]:
+        return await append_async(self.client, entries)
+
+    def statuses(self) -> list[dict[str, Any]]:
+        """The ingest workers' last statuses (blocking: call it off the event loop)."""
+        return read_statuses(self.sync)
 
     async def close(self) -> None:
         await self.client.aclose()

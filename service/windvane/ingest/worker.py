@@ -424,19 +424,6 @@ class IngestWorker:
         self.out.flush()
 
 
-def read_statuses(client: redis.Redis) -> list[dict[str, Any]]:
-    """The last status of every live worker (entries of stopped workers expire)."""
-    with store_errors(describe(client)):
-        names = sorted(_text(n) for n in client.smembers(INGEST_WORKERS_KEY))
-        if not names:
-            return []
-        raws = client.mget([ingest_status_key(n) for n in names])
-        gone = [n for n, raw in zip(names, raws, strict=True) if raw is None]
-        if gone:
-            client.srem(INGEST_WORKERS_KEY, *gone)
-    return [orjson.loads(raw) for raw in raws if raw is not None]
-
-
 def _as_sent(reply: Any, **options: Any) -> Any:
     return reply
 

@@ -26,8 +26,7 @@ from windvane.errors import (
     UnknownModel,
     WindvaneError,
 )
-from windvane.ingest.event_stream import append_async, decode_body, prepare
-from windvane.ingest.worker import read_statuses
+from windvane.ingest.event_stream import decode_body, prepare
 from windvane.inputs.deadline import DEADLINE_HEADER, header_deadline_ms
 from windvane.inputs.openrtb import lookups_from_bid_request
 from windvane.inputs.rtb_objects import identifier
@@ -282,7 +281,7 @@ async def post_events(request: Request, actor: str = Depends(require_writer)) ->
     items = decode_body(await request.body())
     accepted, rejected = prepare(items, state.stream.shards)
     if accepted:
-        await append_async(state.stream.client, accepted)
+        await state.stream.append(accepted)
     body = {"accepted": len(accepted), "rejected": [r.to_dict() for r in rejected]}
     return _json(body, status=200 if accepted or not rejected else 422)
 
@@ -306,7 +305,7 @@ async def health(request: Request) -> Response:
     }
     if state.stream is not None:
         try:
-            body["ingest"] = await asyncio.to_thread(read_statuses, state.stream.sync)
+            body["ingest"] = await asyncio.to_thread(state.stream.statuses)
         except StoreError:
             body["ingest"] = None
     return _json(body, status=200 if reachable else 503)
