@@ -31,6 +31,7 @@ BENCHMARKS = {
     "replay": "bench.replay_bench",
     "ingest": "bench.ingest_bench",
     "memory": "bench.memory_bench",
+    "mixed": "bench.mixed_bench",
 }
 
 
