@@ -6,10 +6,14 @@ touch nor depend on any other Redis on the machine.
 
 from __future__ import annotations
 
+import contextlib
+import os
 import shutil
+import signal
 import socket
 import subprocess
 import tempfile
+from collections.abc import Iterator
 from pathlib import Path
 
 import redis
@@ -85,6 +89,27 @@ class RedisServer:
     def stop(self) -> None:
         stop_child(self.process)
         self.process = None
+
+    @contextlib.contextmanager
+    def frozen(self) -> Iterator[None]:
+        """SIGSTOP for the block: connections stay open and nothing answers, as on a hung host.
+
+        SIGCONT follows even when the block fails, so the server can still be stopped.
+        """
+        assert self.process is not None
+        os.kill(self.process.pid, signal.SIGSTOP)
+        try:
+            yield
+        finally:
+            os.kill(self.process.pid, signal.SIGCONT)
+
+    def connections_received(self) -> int:
+        """Connections the server has accepted since it started, not counting this call's."""
+        client = redis.Redis(host="127.0.0.1", port=self.port)
+        try:
+            return int(client.info("stats")["total_connections_received"]) - 1
+        finally:
+            client.close()
 
     def kill(self) -> None:
         """SIGKILL, like a crash: what append-only persistence has not synced is lost."""

@@ -19,6 +19,8 @@ import orjson
 
 from windvane.definitions.plan import load_plan
 from windvane.engine import Engine
+from windvane.ingest.rejects import RejectsFile
+from windvane.ingest.replay import replay
 from windvane.inputs.events import Event, parse_event
 from windvane.store import open_store
 
@@ -107,6 +109,14 @@ def wait_until(check: Callable[[], bool], timeout_s: float, step_s: float = 0.02
             return True
         time.sleep(step_s)
     return check()
+
+
+def replay_good_lines(engine: Engine, directory: Path, count: int = 600) -> None:
+    """Load ``good_lines(count)`` into the engine's store the way a replay of a log does."""
+    log = directory / "good.jsonl"
+    log.write_bytes(b"\n".join(good_lines(count)) + b"\n")
+    with RejectsFile(directory / "good-rejects.jsonl") as rejects:
+        replay(engine, [str(log)], rejects)
 
 
 def write_defs(directory: Path, text: str, name: str = "features.toml") -> Path:

@@ -8,14 +8,21 @@
     │   └── BadSnapshot      a coefficient snapshot or activation that is refused whole
     ├── UnknownModel         no model (or model version) of that name has been published
     ├── NotAuthorized        a write without the right bearer token
+    ├── BodyTooLarge         a request body beyond its endpoint's limit
     ├── StoreError           the state store is misconfigured or out of reach
     │   └── StoreUnavailable the store did not answer
+    ├── ReplayStopped        a replay stopped part way, through a line (ingest/replay.py)
+    ├── RejectsUnwritable    the rejects file cannot be written (ingest/rejects.py)
     └── UsageError           a command was called with arguments that do not fit
+        └── LogUnreadable    a log cannot be read past a line (ingest/logfile.py)
+
+The three marked with a module live beside what they carry (a replay's statistics,
+a log position) and are defined there; every other one is defined here.
 
 Every message says what is wrong and, where it helps, how to fix it. The CLI prints
 the message without a traceback and exits with status 2 for definition and usage
 mistakes; the HTTP layer maps ``InputError`` to a 422 naming the field, ``UnknownModel``
-to a 404 and ``NotAuthorized`` to a 401.
+to a 404, ``NotAuthorized`` to a 401 and ``BodyTooLarge`` to a 413.
 """
 
 from __future__ import annotations
@@ -67,6 +74,18 @@ class UnknownModel(WindvaneError):
 
 class NotAuthorized(WindvaneError):
     """A write endpoint was called without the configured bearer token."""
+
+
+class BodyTooLarge(WindvaneError):
+    """A request body longer than its endpoint accepts; ``limit`` is that length in bytes.
+
+    Raised as soon as the declared or the received length passes the limit, so the
+    rest of the body is never read.
+    """
+
+    def __init__(self, limit: int) -> None:
+        self.limit = limit
+        super().__init__(f"the body is larger than this endpoint's limit of {limit:,} bytes")
 
 
 class StoreError(WindvaneError):

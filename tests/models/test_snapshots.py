@@ -5,6 +5,7 @@ from __future__ import annotations
 import copy
 import math
 
+import orjson
 import pytest
 
 from tests.conftest import FEATUREDEFS
@@ -150,3 +151,30 @@ def test_scoring_follows_the_documented_terms() -> None:
     assert missing == pytest.approx(1 / (1 + math.exp(-z_missing)), abs=1e-15)
     assert logistic(800.0) == 1.0
     assert logistic(-800.0) == pytest.approx(0.0, abs=1e-300)
+
+
+def test_a_lone_surrogate_or_deep_nesting_is_refused_before_anything_is_stored(
+    store_url: str,
+) -> None:
+    """The standard library reads both; storing either failed with a 500 (issue 10)."""
+    models = registry(store_url)
+    notes = {**GOOD_SNAPSHOT, "training": {"notes": "NOTES"}}
+    cases = [
+        (orjson.dumps(notes).replace(b"NOTES", b"\\udfff"), "training.notes", "lone surrogate"),
+        (orjson.dumps(notes).replace(b"NOTES", b"a\xed\xa0\x80"), "training.notes", "surrogate"),
+        ({**GOOD_SNAPSHOT, "training": {"\udfff": 1}}, "training.\\udfff", "surrogate"),
+        (orjson.dumps(notes).replace(b'"NOTES"', b"[" * 64 + b"]" * 64), "training", "nested"),
+        (b"[" * 100_000 + b"]" * 100_000, "", "nested deeper than 64 levels"),
+    ]
+    for document, field, reason in cases:
+        with pytest.raises(BadSnapshot) as refused:
+            models.publish("ctr", document, "test")
+        assert refused.value.field == field
+        assert reason in refused.value.reason
+    assert models.models() == []
+    # The document and training are two of the 64 levels: the notes may nest 62 more.
+    expected: list = []
+    for _ in range(61):
+        expected = [expected]
+    fits = orjson.dumps(notes).replace(b'"NOTES"', b"[" * 62 + b"]" * 62)
+    assert parse_snapshot(fits).training == {"notes": expected}

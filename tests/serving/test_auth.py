@@ -5,13 +5,22 @@ from __future__ import annotations
 import os
 import subprocess
 import sys
+from collections.abc import Iterator
+from pathlib import Path
 
 import httpx
+import pytest
 
 from tests.conftest import FEATUREDEFS, ROOT
+from tests.in_process import InProcessService
 from tests.service_process import ServiceProcess
+from tests.serving.request_bodies import AUTH as REQUEST_AUTH
+from tests.serving.request_bodies import assert_error_shape, service
 from tests.support import GOOD_SNAPSHOT
+from windvane.errors import UsageError
 from windvane.models.registry import ModelRegistry
+from windvane.serving.config import ServiceConfig, load_config
+from windvane.serving.limits import DEFAULT_MAX_EVENTS_BYTES
 from windvane.store import open_store
 
 TOKEN = "s3cret-token"
@@ -96,3 +105,100 @@ def test_refuses_to_start_with_writes_and_no_token() -> None:
         "windvane: refusing to start: write endpoints are enabled"
     )
     assert b"Traceback" not in done.stderr
+
+
+# --- a token no request can carry; the token before the body ---------------------------------
+
+UNSENDABLE = [
+    ("   ", "only whitespace"),
+    ("\t\n ", "only whitespace"),
+    (" s3cret", "printable ASCII without leading or trailing whitespace"),
+    ("s3cret\n", "printable ASCII without leading or trailing whitespace"),
+    ("s3crét", "printable ASCII without leading or trailing whitespace"),
+    ("s3\x00cret", "printable ASCII without leading or trailing whitespace"),
+]
+
+
+@pytest.mark.parametrize(("token", "reason"), UNSENDABLE)
+def test_a_token_no_request_can_send_refuses_to_start(token: str, reason: str) -> None:
+    with pytest.raises(UsageError, match=f"^refusing to start: .*{reason}"):
+        ServiceConfig(token=token).check()
+    # Without writes, or with writes open on purpose, the token is not used.
+    assert ServiceConfig(token=token, read_only=True).check().token == token
+    assert ServiceConfig(token=token, insecure_dev=True).check().token == token
+
+
+def test_a_blank_token_from_the_environment_or_the_file_refuses_to_start(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    monkeypatch.setenv("WINDVANE_TOKEN", "  ")
+    with pytest.raises(UsageError, match="token is only whitespace"):
+        load_config(None, {}).check()
+    monkeypatch.delenv("WINDVANE_TOKEN")
+    settings = tmp_path / "windvane.toml"
+    settings.write_text('token = " \\t "\n', encoding="utf-8")
+    with pytest.raises(UsageError, match="token is only whitespace"):
+        load_config(str(settings), {}).check()
+
+
+def serve(env_token: str | None, *args: str) -> subprocess.CompletedProcess[bytes]:
+    env = {k: v for k, v in os.environ.items() if k != "WINDVANE_TOKEN"}
+    env["PYTHONPATH"] = str(ROOT / "service")
+    if env_token is not None:
+        env["WINDVANE_TOKEN"] = env_token
+    command = [sys.executable, "-m", "windvane", "serve", "--defs", str(FEATUREDEFS), *args]
+    return subprocess.run(command, env=env, capture_output=True, timeout=60)
+
+
+def test_serve_refuses_a_whitespace_token_with_a_clear_message(tmp_path: Path) -> None:
+    settings = tmp_path / "windvane.toml"
+    settings.write_text('token = "   "\n', encoding="utf-8")
+    for done in (serve(" \t "), serve(None, "--config", str(settings))):
+        assert done.returncode == 2
+        assert done.stderr.decode().startswith(
+            "windvane: refusing to start: write endpoints are enabled but the token is only "
+            "whitespace, which no request can send."
+        )
+        assert b"Traceback" not in done.stderr
+
+
+@pytest.fixture(scope="module")
+def in_process(redis_server) -> Iterator[InProcessService]:  # type: ignore[no-untyped-def]
+    with service(redis_server.url) as svc:
+        yield svc
+
+
+MALFORMED = [
+    b"not json",
+    b"\xff\xfe",
+    b"[" * 100_000 + b"]" * 100_000,
+    b'{"arms": 5, "version": {"x": "\\udfff"}}',
+    b'{"arms": [{"version": "v1", "weight": -1}], "extra": 1}',
+    b" " * (DEFAULT_MAX_EVENTS_BYTES + 1),
+]
+WRITE_PATHS = [
+    "/v1/models/m/snapshots",
+    "/v1/models/m/snapshots?activate=true",
+    "/v1/models/m/activate",
+    "/v1/models/m/rollback",
+    "/v1/events",
+]
+
+
+@pytest.mark.parametrize("path", WRITE_PATHS)
+def test_a_bad_body_without_the_token_is_a_401_never_a_422(
+    in_process: InProcessService, path: str
+) -> None:
+    """The token is checked before the body is read: a stranger learns nothing about it."""
+    history = in_process.request("GET", "/v1/models/m/history").json()
+    for body in MALFORMED:
+        for headers in BAD_HEADERS:
+            answer = in_process.request(
+                "POST", path, content=body, headers={**headers, "Content-Type": "application/json"}
+            )
+            assert answer.status_code == 401, (path, body[:30], headers, answer.text)
+            assert assert_error_shape(answer)["field"] == "authorization"
+        with_token = in_process.request("POST", path, content=body, headers=REQUEST_AUTH)
+        if not path.endswith("rollback"):  # rollback reads no body: its answer is its own
+            assert with_token.status_code in (413, 422), (path, body[:30], with_token.text)
+    assert in_process.request("GET", "/v1/models/m/history").json() == history

@@ -3,15 +3,14 @@
 from __future__ import annotations
 
 import asyncio
-import contextlib
 import time
-from collections.abc import AsyncIterator, Iterator
-from typing import Any
+from collections.abc import Iterator
 
 import httpx
 import pytest
 
 from tests.conftest import FEATUREDEFS
+from tests.in_process import running
 from tests.service_process import ServiceProcess
 from tests.support import GOOD_SNAPSHOT, engine_for, good_lines, wait_until
 from windvane.engine import Engine
@@ -310,24 +309,6 @@ def test_serve_replay_loads_the_embedded_store_before_listening(tmp_path) -> Non
         replay(expected, [str(log)], rejects)
     assert without_timing(answer) == expected.lookup({"user": "user-3", "app": "app-1", "ts": NOW})
     assert answer["features"]["session_depth"] is not None
-
-
-@contextlib.asynccontextmanager
-async def running(app: Any) -> AsyncIterator[httpx.AsyncClient]:
-    """An in-process client for ``app`` with its lifespan started and stopped around it."""
-    inbox: asyncio.Queue[dict] = asyncio.Queue()
-    outbox: asyncio.Queue[dict] = asyncio.Queue()
-    task = asyncio.create_task(app({"type": "lifespan"}, inbox.get, outbox.put))
-    await inbox.put({"type": "lifespan.startup"})
-    assert (await outbox.get())["type"] == "lifespan.startup.complete"
-    try:
-        transport = httpx.ASGITransport(app=app)
-        async with httpx.AsyncClient(transport=transport, base_url="http://test") as client:
-            yield client
-    finally:
-        await inbox.put({"type": "lifespan.shutdown"})
-        await outbox.get()
-        await task
 
 
 def test_documented_route_answers_as_the_fast_path(loaded: Engine, redis_server) -> None:

@@ -24,8 +24,21 @@ from windvane.inputs.deadline import DEFAULT_DEADLINE_MS
 from windvane.models.registry import ModelRegistry
 from windvane.serving.app import create_asgi
 from windvane.serving.config import ENVIRONMENT_KEY, ServiceConfig, load_config
+from windvane.serving.limits import (
+    DEFAULT_MAX_EVENTS_BYTES,
+    DEFAULT_MAX_LOOKUP_BYTES,
+    DEFAULT_MAX_MODEL_BYTES,
+    DEFAULT_MAX_OPENRTB_BYTES,
+)
 from windvane.serving.state import feature_shapes
 from windvane.store import open_store
+
+BODY_LIMIT_FLAGS = (
+    ("--max-lookup-bytes", "POST /v1/lookup", DEFAULT_MAX_LOOKUP_BYTES),
+    ("--max-openrtb-bytes", "POST /v1/lookup/openrtb", DEFAULT_MAX_OPENRTB_BYTES),
+    ("--max-events-bytes", "POST /v1/events", DEFAULT_MAX_EVENTS_BYTES),
+    ("--max-model-bytes", "snapshot or activation", DEFAULT_MAX_MODEL_BYTES),
+)
 
 
 def add_service_commands(commands: Any) -> None:
@@ -48,6 +61,10 @@ def add_service_commands(commands: Any) -> None:
     serve.add_argument("--default-model", metavar="NAME", help="model for lookups naming none")
     serve.add_argument("--cache-ms", type=float, help="max age of cached app state (default 500)")
     serve.add_argument("--read-only", action="store_true", default=None, help="no write endpoints")
+    for flag, what, default in BODY_LIMIT_FLAGS:
+        serve.add_argument(
+            flag, type=int, metavar="BYTES", help=f"largest {what} body (default {default:,})"
+        )
     serve.add_argument(
         "--insecure-dev",
         action="store_true",
@@ -75,6 +92,8 @@ def _serve(args: argparse.Namespace) -> int:
         "replay": args.replay, "deadline_ms": args.deadline_ms,
         "default_model": args.default_model, "cache_ms": args.cache_ms,
         "read_only": args.read_only, "insecure_dev": args.insecure_dev,
+        "max_lookup_bytes": args.max_lookup_bytes, "max_openrtb_bytes": args.max_openrtb_bytes,
+        "max_events_bytes": args.max_events_bytes, "max_model_bytes": args.max_model_bytes,
     }  # fmt: skip
     config = load_config(args.config, overrides).check()
     load_plan(config.defs)  # definition mistakes are reported here, one line each

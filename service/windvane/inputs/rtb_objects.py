@@ -21,6 +21,7 @@ import msgspec
 from msgspec import Meta, Struct
 
 from windvane.errors import InputError
+from windvane.inputs.json_body import DEPTH_REASON
 
 ErrorType = type[InputError]
 
@@ -106,13 +107,20 @@ class Slot(Struct):
 def decode_checked(
     decoder: msgspec.json.Decoder, data: bytes | str, error: ErrorType, not_json: str
 ) -> Any:
-    """Decode and validate in one pass; ``error(field, reason)`` for a bad field or bad JSON."""
+    """Decode and validate in one pass; ``error(field, reason)`` for a bad field or bad JSON.
+
+    A typed decoder keeps nothing deeper than its type, so depth is not checked on the
+    way (that would cost every lookup a pass); only JSON nested too deep for msgspec to
+    skip raises ``RecursionError``, and it is refused as too deep (see ``json_body``).
+    """
     try:
         return decoder.decode(data)
     except msgspec.ValidationError as exc:
         raise error(*validation_problem(exc)) from None
     except msgspec.DecodeError as exc:
         raise error("", f"{not_json} ({exc})") from None
+    except RecursionError:
+        raise error("", f"the JSON {DEPTH_REASON}") from None
 
 
 def validation_problem(exc: msgspec.ValidationError, prefix: str = "") -> tuple[str, str]:

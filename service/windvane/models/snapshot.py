@@ -49,6 +49,7 @@ from pydantic import (
 )
 
 from windvane.errors import BadSnapshot
+from windvane.inputs.json_body import DEPTH_REASON, SURROGATE_REASON, depth_problem, text_problem
 
 Name = Annotated[str, Field(pattern=r"^[A-Za-z_][A-Za-z0-9_]{0,63}$")]
 Version = Annotated[str, Field(pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")]
@@ -141,15 +142,26 @@ def parse_snapshot(data: bytes | str | dict[str, Any]) -> Snapshot:
     """Validate a snapshot document's shape; BadSnapshot names the first bad term or field.
 
     Read with the standard library rather than orjson so that a NaN or Infinity in the
-    file is reported against its term instead of as unreadable JSON.
+    file is reported against its term instead of as unreadable JSON. The standard
+    library also reads a lone surrogate (``"\\udfff"``) into a string that cannot be
+    stored, and recurses once per level: such documents are refused here, naming the
+    field, before anything is stored.
     """
     if isinstance(data, bytes | str):
         try:
             data = json.loads(data)
         except (ValueError, UnicodeDecodeError) as exc:
             raise BadSnapshot("", f"not valid JSON ({exc})") from None
+        except RecursionError:
+            raise BadSnapshot("", f"the JSON {DEPTH_REASON}") from None
     if not isinstance(data, dict):
         raise BadSnapshot("", "a snapshot must be a JSON object")
+    too_deep = depth_problem(data)
+    if too_deep is not None:
+        raise BadSnapshot(too_deep, DEPTH_REASON)
+    not_unicode = text_problem(data)
+    if not_unicode is not None:
+        raise BadSnapshot(not_unicode, SURROGATE_REASON)
     try:
         return Snapshot.model_validate(data)
     except ValidationError as exc:

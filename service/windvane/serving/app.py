@@ -14,8 +14,9 @@ from pydantic.json_schema import models_json_schema
 from windvane.models.snapshot import Snapshot
 from windvane.serving.config import ServiceConfig
 from windvane.serving.fast_path import FastLookup
+from windvane.serving.limits import BodyLimit
 from windvane.serving.routes import install_error_handlers, router
-from windvane.serving.schema import lookup_body_schemas
+from windvane.serving.schema import ActivateBody, lookup_body_schemas
 from windvane.serving.state import ServiceState
 
 DESCRIPTION = """\
@@ -27,6 +28,7 @@ model version and traffic arm used, and a score per candidate. When the store is
 or down, the answer still arrives in time with `"stored": "missing"` and scores from
 the snapshot's defaults.
 Writes (publishing, activating, rolling back) need `Authorization: Bearer <token>`.
+Every error is `{{"error": {{"field", "reason"}}}}`; a body over its endpoint's limit is a 413.
 """
 
 
@@ -48,6 +50,7 @@ def create_app(config: ServiceConfig) -> FastAPI:
     )
     app.include_router(router)
     install_error_handlers(app)
+    app.add_middleware(BodyLimit, routes=config.body_limits.by_route())
 
     def openapi() -> dict[str, Any]:
         if app.openapi_schema is None:
@@ -56,7 +59,8 @@ def create_app(config: ServiceConfig) -> FastAPI:
                 routes=app.routes,
             )  # fmt: skip
             _, definitions = models_json_schema(
-                [(Snapshot, "validation")], ref_template="#/components/schemas/{model}"
+                [(Snapshot, "validation"), (ActivateBody, "validation")],
+                ref_template="#/components/schemas/{model}",
             )
             components = schema.setdefault("components", {}).setdefault("schemas", {})
             components.update(definitions.get("$defs", {}))
@@ -70,7 +74,7 @@ def create_app(config: ServiceConfig) -> FastAPI:
 
 def create_asgi(config: ServiceConfig) -> FastLookup:
     """What uvicorn serves: the application behind the lookup fast path."""
-    return FastLookup(create_app(config))
+    return FastLookup(create_app(config), config.body_limits.lookup)
 
 
 def app_from_environment() -> FastLookup:

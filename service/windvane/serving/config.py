@@ -8,9 +8,11 @@ flags, for example::
     token = "..."               # or WINDVANE_TOKEN in the environment
     deadline_ms = 5
     default_model = "ctr"
+    max_events_bytes = 8388608  # request body limits, see serving/limits.py
 
-The service refuses to start with write endpoints enabled and no token, unless it is
-started read-only or with ``insecure_dev`` for a local demo.
+The service refuses to start with write endpoints enabled and no token, or a token no
+``Authorization`` header can carry (blank, padded with whitespace, not printable
+ASCII), unless it is started read-only or with ``insecure_dev`` for a local demo.
 """
 
 from __future__ import annotations
@@ -26,6 +28,14 @@ import orjson
 
 from windvane.errors import BadRequest, UsageError
 from windvane.inputs.deadline import DEFAULT_DEADLINE_MS, check_deadline_ms
+from windvane.serving.limits import (
+    DEFAULT_MAX_EVENTS_BYTES,
+    DEFAULT_MAX_LOOKUP_BYTES,
+    DEFAULT_MAX_MODEL_BYTES,
+    DEFAULT_MAX_OPENRTB_BYTES,
+    BodyLimits,
+    check_limit,
+)
 from windvane.serving.reply_cache import MAX_AGE_LIMIT_S
 from windvane.store.url import parse_store_url
 
@@ -53,6 +63,10 @@ class ServiceConfig:
     replay: tuple[str, ...] = ()
     rejects: str = "windvane-rejects.jsonl"
     log_level: str = "info"
+    max_lookup_bytes: int = DEFAULT_MAX_LOOKUP_BYTES
+    max_openrtb_bytes: int = DEFAULT_MAX_OPENRTB_BYTES
+    max_events_bytes: int = DEFAULT_MAX_EVENTS_BYTES
+    max_model_bytes: int = DEFAULT_MAX_MODEL_BYTES
 
     @property
     def writes_enabled(self) -> bool:
@@ -64,14 +78,20 @@ class ServiceConfig:
             return self.stream
         return None if parse_store_url(self.store).embedded else self.store
 
+    @property
+    def body_limits(self) -> BodyLimits:
+        return BodyLimits(
+            self.max_lookup_bytes, self.max_openrtb_bytes, self.max_events_bytes,
+            self.max_model_bytes,
+        )  # fmt: skip
+
     def check(self) -> ServiceConfig:
         """Refuse settings that would be unsafe or cannot work, with how to fix them."""
-        if self.writes_enabled and not self.token and not self.insecure_dev:
-            raise UsageError(
-                "refusing to start: write endpoints are enabled but no token is set. Set "
-                "WINDVANE_TOKEN or `token` in the configuration file, start with --read-only, "
-                "or use --insecure-dev on a machine nobody else can reach"
-            )
+        if self.writes_enabled and not self.insecure_dev:
+            _check_token(self.token)
+        for field in ("max_lookup_bytes", "max_openrtb_bytes", "max_events_bytes",
+                      "max_model_bytes"):  # fmt: skip
+            check_limit(getattr(self, field), "--" + field.replace("_", "-"))
         if self.workers < 1:
             raise UsageError("--workers must be at least 1")
         embedded = parse_store_url(self.store).embedded
@@ -105,6 +125,36 @@ class ServiceConfig:
         data = orjson.loads(raw)
         data["replay"] = tuple(data.get("replay", ()))
         return cls(**data)
+
+
+_TOKEN_FIXES = (
+    "Set WINDVANE_TOKEN or `token` in the configuration file, start with --read-only, or use "
+    "--insecure-dev on a machine nobody else can reach"
+)
+
+
+def _check_token(token: str | None) -> None:
+    """Refuse a write token that no request could ever present, as if there were none.
+
+    The Authorization header arrives with surrounding whitespace stripped and is read as
+    Latin-1, so a blank token, one padded with whitespace or one outside printable ASCII
+    would start a service whose writes nobody can make.
+    """
+    if not token:
+        raise UsageError(
+            f"refusing to start: write endpoints are enabled but no token is set. {_TOKEN_FIXES}"
+        )
+    if not token.strip():
+        raise UsageError(
+            "refusing to start: write endpoints are enabled but the token is only whitespace, "
+            f"which no request can send. {_TOKEN_FIXES}"
+        )
+    if token != token.strip() or not all(" " <= c <= "~" for c in token):
+        raise UsageError(
+            "refusing to start: the token must be printable ASCII without leading or trailing "
+            "whitespace, or no Authorization header can carry it; fix WINDVANE_TOKEN or "
+            "`token` in the configuration file"
+        )
 
 
 def load_config(path: str | None, overrides: dict[str, Any]) -> ServiceConfig:

@@ -16,7 +16,8 @@ from starlette.types import Receive, Scope, Send
 
 from windvane.inputs.deadline import DEADLINE_HEADER_BYTES, header_deadline_ms
 from windvane.inputs.lookup_request import decode_lookup_body
-from windvane.serving.http_errors import JSON, error_answer
+from windvane.serving.http_errors import JSON, error_answer, fault_answer
+from windvane.serving.limits import read_body
 from windvane.serving.lookup_service import LookupService
 
 LOOKUP_PATH = "/v1/lookup"
@@ -35,36 +36,42 @@ async def answer_lookup(
 
 
 class FastLookup:
-    """ASGI middleware that serves ``POST /v1/lookup`` without the framework's layers."""
+    """ASGI middleware that serves ``POST /v1/lookup`` without the framework's layers.
 
-    def __init__(self, app: FastAPI) -> None:
+    It reads at most ``max_body_bytes`` of the body (``limits.read_body``) and answers
+    every error in the shape of ``http_errors``, a fault of ours too (a 500, re-raised
+    after the answer so that the server logs it).
+    """
+
+    def __init__(self, app: FastAPI, max_body_bytes: int) -> None:
         self.app = app
+        self.max_body_bytes = max_body_bytes
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] != "http" or scope["path"] != LOOKUP_PATH or scope["method"] != "POST":
             await self.app(scope, receive, send)
             return
         started = time.perf_counter()
-        chunks = []
-        more = True
-        while more:
-            message = await receive()
-            chunks.append(message.get("body", b""))
-            more = message.get("more_body", False)
-        deadline = None
+        deadline = length = None
         for name, value in scope["headers"]:
             if name == DEADLINE_HEADER_BYTES:
                 deadline = value
+            elif name == b"content-length":
+                length = value
         status, headers = 200, [(b"content-type", JSON.encode())]
+        fault = None
         try:
             lookups = self.app.state.windvane.lookups
-            body = await answer_lookup(lookups, b"".join(chunks), deadline, started)
+            request = await read_body(receive, self.max_body_bytes, length)
+            body = await answer_lookup(lookups, request, deadline, started)
         except Exception as exc:
             mapped = error_answer(exc)
             if mapped is None:
-                raise
+                fault, mapped = exc, fault_answer()
             status, body, extra = mapped
             headers += [(k.lower().encode(), v.encode()) for k, v in extra.items()]
         headers.append((b"content-length", str(len(body)).encode()))
         await send({"type": "http.response.start", "status": status, "headers": headers})
         await send({"type": "http.response.body", "body": body})
+        if fault is not None:
+            raise fault

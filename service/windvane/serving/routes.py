@@ -3,8 +3,8 @@
 Lookups parse their bodies with the same code as the CLI and answer with orjson,
 bypassing pydantic on the hot path; writes are rare and validate with pydantic.
 Every error a client can cause is answered as ``{"error": {"field", "reason"}}`` with
-422 (bad field), 404 (unknown model), 401 (no or wrong token) or 503 (store down on a
-write), never 500.
+422 (bad field), 404 (unknown model), 401 (no or wrong token), 413 (body over its
+endpoint's limit, see ``limits``) or 503 (store down on a write), never 500.
 """
 
 from __future__ import annotations
@@ -18,6 +18,7 @@ from typing import Any
 import orjson
 from fastapi import APIRouter, Depends, FastAPI, Query, Request, Response
 from fastapi.exceptions import RequestValidationError
+from starlette.exceptions import HTTPException
 
 from windvane.errors import (
     BadRequest,
@@ -28,17 +29,19 @@ from windvane.errors import (
 )
 from windvane.ingest.event_stream import decode_body, prepare
 from windvane.inputs.deadline import DEADLINE_HEADER, header_deadline_ms
+from windvane.inputs.json_body import loads
 from windvane.inputs.openrtb import lookups_from_bid_request
 from windvane.inputs.rtb_objects import identifier
 from windvane.models.registry import Arm
 from windvane.serving.fast_path import answer_lookup
-from windvane.serving.http_errors import JSON, error_answer
+from windvane.serving.http_errors import JSON, error_answer, fault_answer
 from windvane.serving.schema import (
     LOOKUP_BODY,
     ActivateBody,
     ErrorBody,
     LookupAnswer,
     OpenRtbAnswer,
+    parse_activation,
 )
 from windvane.serving.state import ServiceState
 
@@ -49,6 +52,10 @@ ERRORS: dict[int | str, dict[str, Any]] = {
     401: {"model": ErrorBody, "description": "missing or wrong bearer token"},
     404: {"model": ErrorBody, "description": "unknown model or version"},
     422: {"model": ErrorBody, "description": "a field is missing or wrong; the body names it"},
+}
+BODY_ERRORS: dict[int | str, dict[str, Any]] = {
+    **ERRORS,
+    413: {"model": ErrorBody, "description": "the body is larger than this endpoint's limit"},
 }
 
 
@@ -70,11 +77,7 @@ def _json(data: Any, status: int = 200) -> Response:
 
 
 async def _decode(request: Request) -> Any:
-    body = await request.body()
-    try:
-        return orjson.loads(body)
-    except orjson.JSONDecodeError as exc:
-        raise BadRequest("", f"the body is not valid JSON ({exc})") from None
+    return loads(await request.body(), BadRequest)
 
 
 def _model(raw: object) -> str | None:
@@ -89,7 +92,7 @@ def _model(raw: object) -> str | None:
     "/v1/lookup",
     summary="Features, model version and scores for one auction",
     response_model=LookupAnswer,
-    responses=ERRORS,
+    responses=BODY_ERRORS,
     openapi_extra=_json_body(LOOKUP_BODY),
     tags=["lookup"],
 )
@@ -130,9 +133,9 @@ async def lookup_openrtb(
         identifier(c, "campaigns", BadRequest) or "" for c in campaigns.split(",") if c
     )
     pairs = lookups_from_bid_request(body, candidates)
-    service = _state(request).lookups
-    answers = await asyncio.gather(
-        *(service.lookup(one, _model(model), deadline_ms, started) for _, one in pairs)
+    # One read for every imp: they share the user and app, and must share what was stored.
+    answers = await _state(request).lookups.lookup_many(
+        [one for _, one in pairs], _model(model), deadline_ms, started
     )
     imps = [{"imp": imp_id, **answer} for (imp_id, _), answer in zip(pairs, answers, strict=True)]
     elapsed = round((time.perf_counter() - started) * 1000, 3)
@@ -206,7 +209,7 @@ async def model_history(request: Request, name: str) -> Response:
 @router.post(
     "/v1/models/{name}/snapshots",
     summary="Publish a new version (validated first; a refused snapshot changes nothing)",
-    responses=ERRORS,
+    responses=BODY_ERRORS,
     status_code=201,
     openapi_extra={
         "requestBody": {
@@ -232,13 +235,15 @@ async def publish(
 @router.post(
     "/v1/models/{name}/activate",
     summary="Set the traffic split: versions and weights, the first is the control",
-    responses=ERRORS,
+    responses=BODY_ERRORS,
+    openapi_extra=_json_body(ActivateBody.__name__),
     tags=["models"],
 )
-async def activate(
-    request: Request, name: str, body: ActivateBody, actor: str = Depends(require_writer)
-) -> Response:
+async def activate(request: Request, name: str, actor: str = Depends(require_writer)) -> Response:
+    # The body is read here, after the token is checked, not as a parameter: FastAPI
+    # parses body parameters before dependencies, telling a stranger what it thinks of it.
     state = _state(request)
+    body = parse_activation(await request.body())
     arms = [Arm(a.version, a.weight) for a in body.arms]
     split = await asyncio.to_thread(state.registry.activate, name, arms, actor)
     await state.refresh_models()
@@ -261,7 +266,7 @@ async def rollback(request: Request, name: str, actor: str = Depends(require_wri
 @router.post(
     "/v1/events",
     summary="Append events to the stream (a JSON array or JSON Lines); bad ones are listed",
-    responses=ERRORS,
+    responses=BODY_ERRORS,
     openapi_extra={
         "requestBody": {
             "required": True,
@@ -312,16 +317,24 @@ async def health(request: Request) -> Response:
 
 
 def install_error_handlers(app: FastAPI) -> None:
-    """Route the framework's exceptions through ``http_errors``, the one mapping."""
+    """Route the framework's exceptions through ``http_errors``, the one mapping.
+
+    That covers its own 404 and 405 and, last, any other exception: a 500 in the same
+    shape, which the framework then re-raises for the server to log.
+    """
 
     async def mapped(request: Request, exc: Exception) -> Response:
         answer = error_answer(exc)
         if answer is None:
             raise exc
-        status, body, headers = answer
-        return Response(body, status_code=status, media_type=JSON, headers=headers)
+        return _error_response(*answer)
+
+    async def fault(request: Request, exc: Exception) -> Response:
+        return _error_response(*fault_answer())
 
     app.add_exception_handler(WindvaneError, mapped)
+    app.add_exception_handler(HTTPException, mapped)
+    app.add_exception_handler(Exception, fault)
 
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError) -> Response:
@@ -330,6 +343,10 @@ def install_error_handlers(app: FastAPI) -> None:
         return await mapped(request, BadRequest(field, str(first.get("msg", "invalid"))))
 
     del _validation
+
+
+def _error_response(status: int, body: bytes, headers: dict[str, str]) -> Response:
+    return Response(body, status_code=status, media_type=JSON, headers=headers)
 
 
 __all__ = ["install_error_handlers", "router"]

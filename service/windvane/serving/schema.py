@@ -3,7 +3,7 @@
 The lookup body is the msgspec struct the fast path decodes with
 (``inputs.lookup_request.LookupBody``); its JSON Schema is generated from it, so the
 documented limits are the enforced ones. The answers and the rare write bodies are
-pydantic models here; write endpoints validate with them.
+pydantic models here; write endpoints validate with them, after their token is checked.
 """
 
 from __future__ import annotations
@@ -11,8 +11,10 @@ from __future__ import annotations
 from typing import Any
 
 import msgspec
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, ValidationError
 
+from windvane.errors import BadSnapshot
+from windvane.inputs.json_body import loads
 from windvane.inputs.lookup_request import LookupBody
 
 LOOKUP_BODY = LookupBody.__name__
@@ -62,6 +64,18 @@ class ActivateBody(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
     arms: list[ArmBody] = Field(min_length=1)
+
+
+def parse_activation(body: bytes) -> ActivateBody:
+    """Validate an activation body, or raise ``BadSnapshot`` naming the field (``arms.0.weight``).
+
+    Called by the route after the token check, never by the framework before it.
+    """
+    try:
+        return ActivateBody.model_validate(loads(body, BadSnapshot))
+    except ValidationError as exc:
+        first = exc.errors(include_url=False)[0]
+        raise BadSnapshot(".".join(str(p) for p in first["loc"]), first["msg"]) from None
 
 
 class ErrorDetail(BaseModel):
