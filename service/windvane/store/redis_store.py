@@ -29,7 +29,7 @@ class RedisStateStore(StateStore):
     """
 
     def __init__(
-        self, client: redis.Redis, url: str, keys_per_call: int = 16, args_per_call: int = 2000
+        self, client: redis.Redis, url: str, keys_per_call: int = 8, args_per_call: int = 500
     ) -> None:
         self.client = client
         self.url = url
