@@ -33,22 +33,37 @@ from windvane.store.generations import Generations
 
 def add_ingest_commands(commands: Any) -> None:
     send = commands.add_parser("send", help="append event logs to the event stream")
-    send.add_argument("logs", nargs="+", metavar="LOG")
+    send.add_argument("logs", nargs="+", metavar="LOG", help="JSON Lines logs, plain or .gz")
     send.add_argument("--stream", required=True, metavar="URL", help="redis://host:port/db")
     send.add_argument("--shards", type=int, help="shard count (default: the stream's, else 4)")
     send.add_argument("--batch", type=int, default=1000, help="entries per round trip")
     send.add_argument("--rate", type=float, help="events per second to offer (default: flat out)")
-    send.add_argument("--rejects", default="windvane-rejects.jsonl", metavar="PATH")
+    send.add_argument(
+        "--rejects", default="windvane-rejects.jsonl", metavar="PATH",
+        help="where lines that cannot be sent go (default %(default)s)",
+    )  # fmt: skip
     send.set_defaults(run=_send)
 
     ingest = commands.add_parser("ingest", help="apply the event stream to the store")
-    ingest.add_argument("--stream", required=True, metavar="URL")
-    ingest.add_argument("--store", required=True, metavar="URL")
-    ingest.add_argument("--defs", default="featuredefs", metavar="DIR")
+    ingest.add_argument(
+        "--stream", required=True, metavar="URL", help="the event stream's Redis server"
+    )
+    ingest.add_argument("--store", required=True, metavar="URL", help="the state store to apply to")
+    ingest.add_argument(
+        "--defs",
+        default="featuredefs",
+        metavar="DIR",
+        help="feature definitions (default %(default)s)",
+    )
     ingest.add_argument("--generation", metavar="NAME", help="default: the active generation")
     ingest.add_argument("--shards", default="all", help="shards to serve: all, or e.g. 0,1")
     ingest.add_argument("--name", help="this worker's consumer name (default host-random)")
-    ingest.add_argument("--batch", type=int, default=1000)
+    ingest.add_argument(
+        "--batch",
+        type=int,
+        default=1000,
+        help="entries read per shard and step (default %(default)s)",
+    )
     ingest.add_argument("--lease-ms", type=int, default=5000, help="shard lease (default 5000)")
     ingest.add_argument(
         "--claim-idle-ms", type=int, default=5000,
@@ -57,7 +72,10 @@ def add_ingest_commands(commands: Any) -> None:
     ingest.add_argument(
         "--from-ts", metavar="TS", help="apply only events at or after TS (tops up a rebuild)"
     )
-    ingest.add_argument("--status-every", type=float, default=5.0, metavar="SECONDS")
+    ingest.add_argument(
+        "--status-every", type=float, default=5.0, metavar="SECONDS",
+        help="seconds between status lines (default %(default)s)",
+    )  # fmt: skip
     ingest.add_argument(
         "--retain", type=float, default=7200, metavar="SECONDS",
         help="stream history kept after acknowledgement, for top-ups (default 7200)",
@@ -69,9 +87,12 @@ def add_ingest_commands(commands: Any) -> None:
     ingest.set_defaults(run=_ingest)
 
     gens = commands.add_parser("generations", help="list, activate or drop state generations")
-    gens.add_argument("action", nargs="?", choices=("list", "activate", "drop"), default="list")
-    gens.add_argument("name", nargs="?")
-    gens.add_argument("--store", required=True, metavar="URL")
+    gens.add_argument(
+        "action", nargs="?", choices=("list", "activate", "drop"), default="list",
+        help="list (default), activate NAME or drop NAME",
+    )  # fmt: skip
+    gens.add_argument("name", nargs="?", help="the generation to activate or drop")
+    gens.add_argument("--store", required=True, metavar="URL", help="the state store")
     gens.set_defaults(run=_generations)
 
 

@@ -15,6 +15,7 @@ import shlex
 import sys
 from collections.abc import Sequence
 from datetime import UTC, datetime
+from importlib import metadata
 
 import orjson
 
@@ -77,14 +78,20 @@ def _parser() -> argparse.ArgumentParser:
         prog="windvane",
         description="Streaming behavioural features for real-time bidders, kept in Redis.",
     )
+    parser.add_argument(
+        "--version", action="version", version=f"windvane {metadata.version('windvane')}"
+    )
     commands = parser.add_subparsers(title="commands", metavar="COMMAND")
 
     check = commands.add_parser("check", help="validate feature definitions and print the plan")
-    check.add_argument("defs", nargs="?", default=DEFAULT_DEFS, metavar="DIR")
+    check.add_argument(
+        "defs", nargs="?", default=DEFAULT_DEFS, metavar="DIR",
+        help="feature definition directory (default featuredefs)",
+    )  # fmt: skip
     check.set_defaults(run=_check)
 
     rep = commands.add_parser("replay", help="apply event logs (JSON Lines, plain or gzip)")
-    rep.add_argument("logs", nargs="+", metavar="LOG")
+    rep.add_argument("logs", nargs="+", metavar="LOG", help="JSON Lines logs, plain or .gz, or -")
     store_options(rep)
     rep.add_argument(
         "--batch",
@@ -128,7 +135,10 @@ def _parser() -> argparse.ArgumentParser:
         metavar="LOG",
         help="replay these logs first (useful with the embedded memory:// store)",
     )
-    feat.add_argument("--rejects", default="windvane-rejects.jsonl", metavar="PATH")
+    feat.add_argument(
+        "--rejects", default="windvane-rejects.jsonl", metavar="PATH",
+        help="where lines of --replay that cannot be applied go (default %(default)s)",
+    )  # fmt: skip
     feat.add_argument("--pretty", action="store_true", help="indented JSON for reading")
     feat.add_argument("--generation", metavar="NAME", help="default: the active generation")
     feat.set_defaults(run=_features)

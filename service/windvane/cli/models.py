@@ -26,8 +26,8 @@ from windvane.store import open_store
 
 def add_model_commands(commands: Any) -> None:
     pub = commands.add_parser("publish", help="validate and store a coefficient snapshot")
-    pub.add_argument("file", metavar="FILE")
-    pub.add_argument("--model", required=True, metavar="NAME")
+    pub.add_argument("file", metavar="FILE", help="the snapshot document (JSON)")
+    pub.add_argument("--model", required=True, metavar="NAME", help="the model's name")
     pub.add_argument("--activate", action="store_true", help="make it the only active arm")
     pub.add_argument("--by", default=_who(), help="who publishes (default user@host)")
     store_options(pub)
@@ -36,15 +36,22 @@ def add_model_commands(commands: Any) -> None:
     act = commands.add_parser(
         "activate", help="set a model's traffic split, e.g. v7=90 v8=10 (first = control)"
     )
-    act.add_argument("arms", nargs="+", metavar="VERSION[=WEIGHT]")
-    act.add_argument("--model", required=True, metavar="NAME")
-    act.add_argument("--by", default=_who())
+    act.add_argument(
+        "arms", nargs="+", metavar="VERSION[=WEIGHT]",
+        help="published versions with their traffic weights; the first is the control",
+    )  # fmt: skip
+    act.add_argument("--model", required=True, metavar="NAME", help="the model's name")
+    act.add_argument(
+        "--by", default=_who(), help="who does it, for the audit trail (default user@host)"
+    )
     store_options(act)
     act.set_defaults(run=_activate)
 
     back = commands.add_parser("rollback", help="restore the previously active split")
-    back.add_argument("--model", required=True, metavar="NAME")
-    back.add_argument("--by", default=_who())
+    back.add_argument("--model", required=True, metavar="NAME", help="the model's name")
+    back.add_argument(
+        "--by", default=_who(), help="who does it, for the audit trail (default user@host)"
+    )
     store_options(back)
     back.set_defaults(run=_rollback)
 

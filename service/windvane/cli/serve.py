@@ -76,11 +76,22 @@ def add_service_commands(commands: Any) -> None:
     demo = commands.add_parser(
         "demo", help="generate a demo log, load it, publish a snapshot and serve it"
     )
-    demo.add_argument("--port", type=int, default=8700)
-    demo.add_argument("--events", type=int, default=60_000)
-    demo.add_argument("--seed", type=int, default=7)
+    demo.add_argument(
+        "--port", type=int, default=8700, help="port to serve on (default %(default)s)"
+    )
+    demo.add_argument(
+        "--events", type=int, default=60_000, help="demo events to generate (default %(default)s)"
+    )
+    demo.add_argument(
+        "--seed", type=int, default=7, help="seed of the demo generator (default %(default)s)"
+    )
     demo.add_argument("--out", default="demo/out", help="where the demo log goes")
-    demo.add_argument("--defs", default="featuredefs", metavar="DIR")
+    demo.add_argument(
+        "--defs",
+        default="featuredefs",
+        metavar="DIR",
+        help="feature definitions (default %(default)s)",
+    )
     demo.set_defaults(run=_demo)
 
 
