@@ -3,10 +3,12 @@
 A frozen server (SIGSTOP) keeps its connections open and answers nothing, as a hung
 or half-open one would; a killed one refuses connections until it is started again on
 the same port. Every lookup meanwhile must be a 200 within the default deadline plus a
-generous 50 ms, by the answer's own ``elapsed_ms`` and by this process's clock: a bound
-that a one-second hang (the client's socket timeout) breaks, while a busy machine does
-not. Afterwards the service must read the store again on its own. How close answers
-come to the deadline is measured in ``bench/``, not asserted here.
+generous 50 ms by the answer's own ``elapsed_ms``, and within 250 ms more by this
+process's clock (which also counts the HTTP exchange and this process's scheduling on a
+busy CI machine): hang guards that a one-second hang (the client's socket timeout)
+breaks, while a busy machine does not. Afterwards the service must read the store again
+on its own. How close answers come to the deadline is measured in ``bench/``, not
+asserted here.
 """
 
 from __future__ import annotations
@@ -27,6 +29,7 @@ from tests.support import engine_for, replay_good_lines, wait_until
 from windvane.inputs.deadline import DEFAULT_DEADLINE_MS
 
 BOUND_MS = DEFAULT_DEADLINE_MS + 50
+WALL_BOUND_MS = DEFAULT_DEADLINE_MS + 250
 NOW = round(time.time())
 REQUEST = {"user": "user-3", "app": "app-1", "ts": NOW, "campaigns": ["camp-0"]}
 PATIENT = {**REQUEST, "deadline_ms": 3000}
@@ -90,7 +93,7 @@ def in_time(client: httpx.Client, path: str, body: dict[str, Any]) -> dict[str, 
     assert response.status_code == 200, response.text
     answer = response.json()
     assert answer["elapsed_ms"] <= BOUND_MS, answer
-    assert wall_ms <= BOUND_MS, (wall_ms, answer)
+    assert wall_ms <= WALL_BOUND_MS, (wall_ms, answer)
     return answer
 
 
